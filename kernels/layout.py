@@ -1,0 +1,350 @@
+"""The layout model: which physical order, tiling and padding holds the logical axes.
+
+Spec grammar (outermost token first, joined by ``.``, optional ``@N`` base offset)::
+
+    spec    := token ("." token)* ["@" bytes]
+    token   := name [size] ["+" pad]
+    name    := "var" | "z" | "y" | "x"   a whole logical axis
+             | "Y" | "X"                 tile index of a tiled horizontal axis
+    size    := digits                    on "y"/"x": position inside a tile of that size
+
+Examples: ``var.z.y.x``, ``y.x.z.var``, ``Y.X.var.z.y4.x8``, ``var.z.y+1.x+8``,
+``var.z.y.x@128`` (buffer starts 128 bytes past a 64-byte boundary).
+"""
+
+from __future__ import annotations
+
+import itertools
+import re
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from kernels.errors import LayoutError
+from kernels.grid import HORIZONTAL_AXES, LOGICAL_AXES, Extents, check_dtype
+
+#: Alignment of every state buffer, in bytes (a cache line on x86-64 and most Arm cores).
+ALIGNMENT = 64
+
+WHOLE, TILES, WITHIN = "whole", "tiles", "within"
+_TOKEN_RE = re.compile(r"^(?P<name>[A-Za-z]+)(?P<size>\d*)(?:(?P<plus>\+)(?P<pad>.*))?$")
+_VALID_NAMES = "var, z, y, x, Y, X (tile index), yN, xN (position in a tile of N)"
+
+
+@dataclass(frozen=True)
+class Token:
+    """One physical axis of a layout: a whole logical axis, or one part of a tiled one."""
+
+    axis: str
+    part: str = WHOLE
+    tile: int = 0
+    pad: int = 0
+
+    @property
+    def text(self) -> str:
+        """Canonical spec text of this token."""
+        if self.part == TILES:
+            name = self.axis.upper()
+        elif self.part == WITHIN:
+            name = f"{self.axis}{self.tile}"
+        else:
+            name = self.axis
+        return f"{name}+{self.pad}" if self.pad else name
+
+    def count(self, extents: Extents) -> int:
+        """Logical (unpadded) extent of this physical axis."""
+        n = extents[self.axis]
+        if self.part == TILES:
+            return n // self.tile
+        if self.part == WITHIN:
+            return self.tile
+        return n
+
+    def extent(self, extents: Extents) -> int:
+        """Physical extent of this axis, padding included."""
+        return self.count(extents) + self.pad
+
+    def logical_index(self, index: np.ndarray) -> np.ndarray:
+        """Map logical indices along ``axis`` to indices along this physical axis."""
+        if self.part == TILES:
+            return index // self.tile
+        if self.part == WITHIN:
+            return index % self.tile
+        return index
+
+
+@dataclass(frozen=True)
+class Layout:
+    """A physical order of the logical axes, with optional tiling, padding and base offset.
+
+    Frozen and hashable; ``Layout.parse(layout.spec) == layout`` always holds.
+    """
+
+    tokens: tuple[Token, ...]
+    base_offset: int = 0
+    _tiles: dict[str, int] = field(default_factory=dict, init=False, repr=False, compare=False, hash=False)
+
+    def __post_init__(self) -> None:
+        _validate(self.tokens, self.base_offset)
+        object.__setattr__(self, "_tiles", {t.axis: t.tile for t in self.tokens if t.part == WITHIN})
+
+    # -- text -----------------------------------------------------------------------------
+    @classmethod
+    def parse(cls, spec: str) -> Layout:
+        """Parse spec text strictly (see the module docstring); raise LayoutError on any fault."""
+        return parse_layout(spec)
+
+    @property
+    def spec(self) -> str:
+        """Canonical spec text."""
+        body = ".".join(t.text for t in self.tokens)
+        return f"{body}@{self.base_offset}" if self.base_offset else body
+
+    def __str__(self) -> str:
+        return self.spec
+
+    def __repr__(self) -> str:
+        return f"Layout('{self.spec}')"
+
+    # -- structure ------------------------------------------------------------------------
+    @property
+    def tiles(self) -> dict[str, int]:
+        """Tile size per tiled axis (``{}`` when untiled)."""
+        return dict(self._tiles)
+
+    @property
+    def is_tiled(self) -> bool:
+        return bool(self._tiles)
+
+    @property
+    def is_padded(self) -> bool:
+        return any(t.pad for t in self.tokens)
+
+    @property
+    def is_plain(self) -> bool:
+        """A pure permutation: no tiling, no padding, no base offset (preferred on ties)."""
+        return not (self.is_tiled or self.is_padded or self.base_offset)
+
+    @property
+    def order(self) -> tuple[str, ...]:
+        """Logical axis of each physical axis, outermost first."""
+        return tuple(t.axis for t in self.tokens)
+
+    def index_of(self, axis: str, part: str = WHOLE) -> int:
+        """Physical position of a logical axis (or of one part of a tiled axis)."""
+        for pos, tok in enumerate(self.tokens):
+            if tok.axis == axis and tok.part == part:
+                return pos
+        raise LayoutError(f"layout '{self.spec}' has no {part} part of axis '{axis}'")
+
+    def with_offset(self, base_offset: int) -> Layout:
+        """The same layout starting ``base_offset`` bytes past an aligned address."""
+        return Layout(self.tokens, base_offset)
+
+    # -- geometry -------------------------------------------------------------------------
+    def check(self, extents: Extents) -> None:
+        """Raise LayoutError if the layout cannot hold a grid of these extents."""
+        for axis, tile in self._tiles.items():
+            n = extents[axis]
+            if n % tile:
+                raise LayoutError(
+                    f"tile size {tile} does not divide extent {n} of axis '{axis}' in layout "
+                    f"'{self.spec}'; valid tile sizes divide {n}"
+                )
+
+    def counts(self, extents: Extents) -> tuple[int, ...]:
+        """Logical (unpadded) extent of each physical axis."""
+        self.check(extents)
+        return tuple(t.count(extents) for t in self.tokens)
+
+    def shape(self, extents: Extents) -> tuple[int, ...]:
+        """Physical shape, padding included."""
+        self.check(extents)
+        return tuple(t.extent(extents) for t in self.tokens)
+
+    def strides(self, extents: Extents, dtype: Any) -> tuple[int, ...]:
+        """Byte strides of the C-contiguous physical array."""
+        itemsize = check_dtype(dtype).itemsize
+        shape = self.shape(extents)
+        out = [0] * len(shape)
+        step = itemsize
+        for pos in range(len(shape) - 1, -1, -1):
+            out[pos] = step
+            step *= shape[pos]
+        return tuple(out)
+
+    def nbytes(self, extents: Extents, dtype: Any) -> int:
+        """Bytes of the physical array, padding included (base offset excluded)."""
+        return int(np.prod(self.shape(extents), dtype=np.int64)) * check_dtype(dtype).itemsize
+
+    def contiguous_tokens(self, extents: Extents) -> tuple[str, ...]:
+        """Innermost physical axes that together form one unbroken run of memory.
+
+        The innermost axis always has unit stride; an outer axis joins the run while every
+        axis inside it is unpadded (padding breaks the run).
+        """
+        run: list[str] = []
+        for tok in reversed(self.tokens):
+            run.append(tok.text)
+            if tok.pad:
+                break
+        return tuple(reversed(run))
+
+    def byte_offset(self, extents: Extents, dtype: Any, v: Any, k: Any, j: Any, i: Any) -> np.ndarray:
+        """Byte offset (from the array start) of logical element(s) ``(v, k, j, i)``."""
+        strides = self.strides(extents, dtype)
+        index = dict(zip(LOGICAL_AXES, (np.asarray(v), np.asarray(k), np.asarray(j), np.asarray(i))))
+        total = np.zeros(np.broadcast(*index.values()).shape, dtype=np.int64)
+        for tok, stride in zip(self.tokens, strides):
+            total = total + tok.logical_index(index[tok.axis]).astype(np.int64) * stride
+        return total
+
+    def describe(self, extents: Extents, dtype: Any) -> dict[str, Any]:
+        """Everything a person needs to reason about this layout at these extents."""
+        dt = check_dtype(dtype)
+        return {
+            "layout": self.spec,
+            "dtype": dt.name,
+            "shape": self.shape(extents),
+            "strides_bytes": self.strides(extents, dt),
+            "bytes": self.nbytes(extents, dt),
+            "padding_bytes": self.nbytes(extents, dt) - extents.points * dt.itemsize,
+            "contiguous": ".".join(self.contiguous_tokens(extents)),
+            "alignment": ALIGNMENT,
+            "base_offset": self.base_offset,
+        }
+
+
+def _validate(tokens: tuple[Token, ...], base_offset: int) -> None:
+    if not tokens:
+        raise LayoutError("empty layout; a layout names each of var, z, y, x once")
+    if isinstance(base_offset, bool) or not isinstance(base_offset, (int, np.integer)) or base_offset < 0:
+        raise LayoutError(f"base offset must be a non-negative number of bytes, got {base_offset!r}")
+    seen: dict[tuple[str, str], Token] = {}
+    for tok in tokens:
+        if tok.axis not in LOGICAL_AXES:
+            raise LayoutError(f"unknown axis '{tok.axis}'; valid tokens: {_VALID_NAMES}")
+        if tok.pad < 0:
+            raise LayoutError(f"negative pad {tok.pad} on token '{tok.axis}'; pads are >= 0")
+        if tok.part != WHOLE and tok.axis not in HORIZONTAL_AXES:
+            raise LayoutError(f"axis '{tok.axis}' cannot be tiled; only y and x can")
+        if tok.part == WITHIN and tok.tile <= 0:
+            raise LayoutError(f"tile size of '{tok.text}' must be positive")
+        key = (tok.axis, tok.part)
+        if key in seen:
+            raise LayoutError(f"token '{tok.text}' repeats axis '{tok.axis}'; each axis appears once")
+        seen[key] = tok
+    for axis in LOGICAL_AXES:
+        parts = {part for (a, part) in seen if a == axis}
+        if not parts:
+            raise LayoutError(f"layout is missing axis '{axis}'; a layout names each of var, z, y, x once")
+        if WHOLE in parts and len(parts) > 1:
+            raise LayoutError(f"axis '{axis}' appears both whole and tiled; use '{axis}' or '{axis.upper()}' with '{axis}N'")
+        if parts == {TILES}:
+            raise LayoutError(f"tile index '{axis.upper()}' has no partner '{axis}N' giving the tile size")
+        if parts == {WITHIN}:
+            tile = seen[(axis, WITHIN)].tile
+            raise LayoutError(f"tile part '{axis}{tile}' has no partner tile index '{axis.upper()}'")
+        if parts == {TILES, WITHIN} and seen[(axis, TILES)].tile != seen[(axis, WITHIN)].tile:
+            raise LayoutError(f"tile index '{axis.upper()}' and '{axis}N' disagree on the tile size")
+
+
+def parse_layout(spec: str) -> Layout:
+    """Parse layout spec text; see the module docstring for the grammar."""
+    if not isinstance(spec, str) or not spec.strip():
+        raise LayoutError(f"empty layout spec {spec!r}; example: var.z.y.x")
+    text = spec.strip()
+    body, at, offset_text = text.partition("@")
+    base_offset = 0
+    if at:
+        if not offset_text.isdigit():
+            raise LayoutError(f"base offset '@{offset_text}' in '{text}' must be a non-negative integer of bytes")
+        base_offset = int(offset_text)
+    raw: list[tuple[str, str, int, int]] = []
+    for piece in body.split("."):
+        m = _TOKEN_RE.match(piece)
+        if not m:
+            raise LayoutError(f"bad token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}, each optionally +PAD")
+        name, size, plus, pad_text = m["name"], m["size"], m["plus"], m["pad"]
+        pad = 0
+        if plus:
+            if not re.fullmatch(r"-?\d+", pad_text or ""):
+                raise LayoutError(f"bad pad in token '{piece}'; write +N with N a non-negative integer")
+            pad = int(pad_text)
+            if pad < 0:
+                raise LayoutError(f"negative pad in token '{piece}'; pads are >= 0")
+        if name in ("Y", "X"):
+            if size:
+                raise LayoutError(f"tile index '{name}' takes no size in '{piece}'; put it on '{name.lower()}{size}'")
+            raw.append((name.lower(), TILES, 0, pad))
+        elif name in LOGICAL_AXES:
+            if size:
+                if name not in HORIZONTAL_AXES:
+                    raise LayoutError(f"axis '{name}' cannot be tiled (token '{piece}'); only y and x can")
+                if int(size) <= 0:
+                    raise LayoutError(f"tile size in '{piece}' must be positive")
+                raw.append((name, WITHIN, int(size), pad))
+            else:
+                raw.append((name, WHOLE, 0, pad))
+        else:
+            raise LayoutError(f"unknown token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}")
+    sizes = {axis: tile for axis, part, tile, _ in raw if part == WITHIN}
+    tokens = tuple(
+        Token(axis, part, sizes.get(axis, 0) if part == TILES else tile, pad) for axis, part, tile, pad in raw
+    )
+    return Layout(tokens, base_offset)
+
+
+def as_layout(layout: Layout | str) -> Layout:
+    """Accept a Layout or its spec text."""
+    return layout if isinstance(layout, Layout) else parse_layout(layout)
+
+
+# -- families ---------------------------------------------------------------------------------
+def permutations() -> list[Layout]:
+    """All 24 orders of the four logical axes, in lexicographic order of ``(var, z, y, x)``."""
+    return [Layout(tuple(Token(a) for a in order)) for order in itertools.permutations(LOGICAL_AXES)]
+
+
+def tilings(tiles: Iterable[tuple[int, int]], order: str = "Y.X.var.z.y.x") -> list[Layout]:
+    """Tiled layouts over tile sizes ``(ty, tx)``; ``order`` places Y, X (tile index) and y, x (in tile)."""
+    template = order.split(".")
+    if sorted(t.rstrip("+0123456789") for t in template) != sorted(["Y", "X", "var", "z", "y", "x"]):
+        raise LayoutError(f"tiling order '{order}' must name Y, X, var, z, y, x once each, e.g. Y.X.var.z.y.x")
+    out = []
+    for ty, tx in tiles:
+        size = {"y": ty, "x": tx}
+        spec = ".".join(f"{t[0]}{size[t[0]]}{t[1:]}" if t[0] in size else t for t in template)
+        out.append(parse_layout(spec))
+    return out
+
+
+def paddings(base: Layout | str, pads: Sequence[int], token: str | None = None) -> list[Layout]:
+    """Copies of ``base`` with one token (default: the innermost) padded by each of ``pads``."""
+    base = as_layout(base)
+    names = [t.text.split("+")[0] for t in base.tokens]
+    target = names[-1] if token is None else token
+    if target not in names:
+        raise LayoutError(f"token '{target}' is not in layout '{base.spec}'; its tokens: {', '.join(names)}")
+    pos = names.index(target)
+    out = []
+    for pad in pads:
+        if pad < 0:
+            raise LayoutError(f"negative pad {pad}; pads are >= 0")
+        toks = list(base.tokens)
+        toks[pos] = Token(toks[pos].axis, toks[pos].part, toks[pos].tile, pad)
+        out.append(Layout(tuple(toks), base.base_offset))
+    return out
+
+
+def parse_tile_sizes(text: str) -> list[tuple[int, int]]:
+    """Parse ``"4x8,8x8"`` into ``[(4, 8), (8, 8)]`` (y-size first)."""
+    out = []
+    for item in text.split(","):
+        m = re.fullmatch(r"\s*(\d+)x(\d+)\s*", item)
+        if not m or int(m[1]) <= 0 or int(m[2]) <= 0:
+            raise LayoutError(f"bad tile size '{item.strip()}'; write YSIZExXSIZE with positive sizes, e.g. 4x8")
+        out.append((int(m[1]), int(m[2])))
+    return out

@@ -1,0 +1,147 @@
+"""The layout model: parsing, printing, families and geometry (checked against NumPy)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from kernels.errors import LayoutError
+from kernels.grid import Extents
+from kernels.layout import Layout, parse_layout, paddings, parse_tile_sizes, permutations, tilings
+from kernels.state import State
+from tests.strategies import extents, layouts_for
+
+
+@given(st.data())
+def test_parse_print_round_trip(data: st.DataObject) -> None:
+    ext = data.draw(extents())
+    layout = data.draw(layouts_for(ext))
+    assert parse_layout(layout.spec) == layout
+    assert hash(parse_layout(layout.spec)) == hash(layout)
+
+
+@pytest.mark.parametrize(
+    "spec, canonical",
+    [("var.z.y.x", "var.z.y.x"), (" y.x.z.var ", "y.x.z.var"), ("var.z.y+0.x+8", "var.z.y.x+8"), ("Y.X.var.z.y4.x8@0", "Y.X.var.z.y4.x8")],
+)
+def test_canonical_form(spec: str, canonical: str) -> None:
+    assert parse_layout(spec).spec == canonical
+
+
+def test_families() -> None:
+    perms = permutations()
+    assert len(perms) == 24 and len(set(perms)) == 24
+    assert all(p.is_plain for p in perms)
+    tiled = tilings([(4, 8), (8, 8)])
+    assert [t.spec for t in tiled] == ["Y.X.var.z.y4.x8", "Y.X.var.z.y8.x8"]
+    assert tiled[0].tiles == {"y": 4, "x": 8}
+    padded = paddings("var.z.y.x", [0, 1, 8])
+    assert [p.spec for p in padded] == ["var.z.y.x", "var.z.y.x+1", "var.z.y.x+8"]
+    assert paddings("var.z.y.x", [2], token="z")[0].spec == "var.z+2.y.x"
+    assert parse_tile_sizes("4x8, 2x2") == [(4, 8), (2, 2)]
+
+
+def test_level_stride_aliasing_needs_outer_padding() -> None:
+    """The design's example: x=128+8, y=128, float64 still has a level stride of 34 x 4 KiB."""
+    ext = Extents(var=1, z=4, y=128, x=128)
+    inner_only = parse_layout("var.z.y.x+8").strides(ext, "float64")
+    assert inner_only[1] == 34 * 4096
+    outer_too = parse_layout("var.z.y+1.x+8").strides(ext, "float64")
+    assert outer_too[1] % 4096 != 0
+
+
+@given(st.data())
+def test_offsets_match_numpy(data: st.DataObject) -> None:
+    """NumPy is the reference: the byte offset of (v, k, j, i) computed by the layout equals the
+    offset NumPy's own strides give for the same element of the physical array."""
+    ext = data.draw(extents())
+    layout = data.draw(layouts_for(ext))
+    dtype = data.draw(st.sampled_from(["float32", "float64"]))
+    if layout.base_offset % np.dtype(dtype).itemsize:
+        layout = layout.with_offset(0)
+    state = State.zeros(layout, ext, dtype)
+    assert layout.strides(ext, dtype) == state.data.strides
+    assert layout.shape(ext) == state.data.shape
+    assert layout.nbytes(ext, dtype) == state.data.nbytes
+    # Tag every logical element with its flat logical index, then look each up by byte offset.
+    tags = np.arange(ext.points, dtype=dtype).reshape(ext.shape)
+    state.assign_logical(tags)
+    v, k, j, i = np.unravel_index(np.arange(ext.points), ext.shape)
+    offsets = layout.byte_offset(ext, dtype, v, k, j, i)
+    flat = state.data.reshape(-1)
+    assert np.array_equal(flat[offsets // state.data.itemsize], tags.reshape(-1))
+    assert state.data.ctypes.data % 64 == layout.base_offset % 64
+
+
+def test_contiguous_run() -> None:
+    ext = Extents(2, 3, 4, 8)
+    assert parse_layout("var.z.y.x").contiguous_tokens(ext) == ("var", "z", "y", "x")
+    assert parse_layout("var.z.y+1.x").contiguous_tokens(ext) == ("y+1", "x")
+    assert parse_layout("var.z.y.x+8").contiguous_tokens(ext) == ("x+8",)
+
+
+BAD_SPECS = [
+    ("var.z.q.x", "'q'"),  # unknown axis
+    ("var.z.y.x.z", "'z'"),  # repeated axis
+    ("var.z.y", "'x'"),  # missing axis
+    ("Y.var.z.y.x", "'Y'"),  # tile index without its partner (y whole)
+    ("Y.X.var.z.x8", "'Y'"),  # tile index without partner
+    ("X.var.z.y.x.x8", "'x'"),  # whole and tiled x both
+    ("var.z.y4.X.x8", "'y4'"),  # tile part without tile index
+    ("var.z4.y.x", "'z4'"),  # tiling a vertical axis
+    ("Y4.X.var.z.y4.x8", "'Y4'"),  # size on a tile index
+    ("var.z.y.x+-1", "'x+-1'"),  # negative pad
+    ("var.z.y.x+", "'x+'"),  # empty pad
+    ("var.z.y.x@-8", "'@-8'"),  # negative base offset
+    ("", "''"),  # empty
+    ("var..z.y.x", "''"),  # empty token
+]
+
+
+@pytest.mark.parametrize("spec, named", BAD_SPECS)
+def test_bad_specs_name_the_token(spec: str, named: str) -> None:
+    with pytest.raises(LayoutError) as info:
+        parse_layout(spec)
+    assert named in str(info.value)
+    assert "\n" not in str(info.value)
+
+
+def test_tile_must_divide_extent() -> None:
+    with pytest.raises(LayoutError, match=r"tile size 5 does not divide extent 128 of axis 'y'"):
+        parse_layout("Y.X.var.z.y5.x8").shape(Extents(4, 8, 128, 128))
+
+
+@pytest.mark.parametrize("axis", ["var", "z", "y", "x"])
+@pytest.mark.parametrize("bad", [0, -3])
+def test_bad_extents(axis: str, bad: int) -> None:
+    values = {"var": 2, "z": 3, "y": 4, "x": 5, axis: bad}
+    with pytest.raises(LayoutError, match=f"axis '{axis}'"):
+        Extents(**values)
+
+
+@pytest.mark.parametrize(
+    "text, named", [("var=4,z=64,y=8", "x"), ("var=4,z=0,y=8,x=8", "z"), ("var=4,q=2,y=8,x=8", "q=2"), ("var=a,z=1,y=1,x=1", "'a'")]
+)
+def test_bad_grid_text(text: str, named: str) -> None:
+    with pytest.raises(LayoutError, match=named):
+        Extents.parse(text)
+
+
+def test_bad_tile_size_text_and_pads() -> None:
+    with pytest.raises(LayoutError, match="'4by8'"):
+        parse_tile_sizes("4by8")
+    with pytest.raises(LayoutError, match="-1"):
+        paddings("var.z.y.x", [-1])
+    with pytest.raises(LayoutError, match="'q'"):
+        paddings("var.z.y.x", [1], token="q")
+    with pytest.raises(LayoutError, match="'Y.var.z.y.x'"):
+        tilings([(4, 4)], order="Y.var.z.y.x")
+
+
+def test_layout_is_hashable_and_frozen() -> None:
+    layout = Layout.parse("var.z.y.x")
+    assert {layout: 1}[Layout.parse("var.z.y.x")] == 1
+    with pytest.raises(AttributeError):
+        layout.base_offset = 8  # type: ignore[misc]
