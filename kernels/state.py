@@ -12,16 +12,13 @@ from kernels.grid import LOGICAL_AXES, Extents, check_dtype
 from kernels.layout import ALIGNMENT, TILES, WITHIN, Layout, as_layout
 
 
-def aligned_empty(nbytes: int, base_offset: int = 0) -> tuple[np.ndarray, np.ndarray]:
-    """A byte buffer of ``nbytes`` starting ``base_offset`` bytes past an ALIGNMENT boundary.
-
-    Returns ``(owner, view)``; keep ``owner`` alive as long as ``view`` is used.
-    """
+def aligned_empty(nbytes: int, base_offset: int = 0) -> np.ndarray:
+    """A zeroed byte buffer of ``nbytes`` starting ``base_offset`` bytes past an ALIGNMENT boundary."""
     if base_offset < 0:
         raise LayoutError(f"base offset must be >= 0 bytes, got {base_offset}")
     owner = np.zeros(nbytes + ALIGNMENT + base_offset, dtype=np.uint8)
     shift = (-owner.ctypes.data) % ALIGNMENT + base_offset
-    return owner, owner[shift : shift + nbytes]
+    return owner[shift : shift + nbytes]  # the view keeps the larger allocation alive
 
 
 @dataclass(frozen=True, eq=False)
@@ -35,7 +32,6 @@ class State:
     layout: Layout
     extents: Extents
     data: np.ndarray
-    _owner: np.ndarray
 
     # -- construction ---------------------------------------------------------------------
     @classmethod
@@ -49,9 +45,8 @@ class State:
                 f"the {dt.name} item size {dt.itemsize}; valid offsets are multiples of {dt.itemsize}"
             )
         shape = layout.shape(extents)
-        owner, raw = aligned_empty(layout.nbytes(extents, dt), layout.base_offset)
-        data = raw.view(dt).reshape(shape)
-        return cls(layout, extents, data, owner)
+        raw = aligned_empty(layout.nbytes(extents, dt), layout.base_offset)
+        return cls(layout, extents, raw.view(dt).reshape(shape))
 
     @classmethod
     def from_logical(cls, values: np.ndarray, layout: Layout | str, dtype: Any | None = None) -> State:

@@ -1,0 +1,180 @@
+"""The one contract every kernel meets, and validation against its reference."""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from kernels.grid import Extents, check_dtype
+from kernels.jit import Compiled
+from kernels.layout import Layout, as_layout
+from kernels.state import State
+
+BUILDS = ("parallel", "serial", "empty")
+
+
+@dataclass(frozen=True)
+class Schedule:
+    """One compiled implementation of a kernel: how threads split the work, what the inner loop runs along."""
+
+    name: str
+    summary: str
+    params: tuple[tuple[str, int], ...] = ()
+
+    def param(self, key: str, default: int) -> int:
+        return dict(self.params).get(key, default)
+
+
+@dataclass(eq=False)
+class Problem:
+    """Inputs and output of one kernel call, in one layout, plus the logical inputs for the reference."""
+
+    kernel: str
+    layout: Layout
+    extents: Extents
+    dtype: np.dtype
+    seed: int
+    fields: dict[str, State]
+    arrays: dict[str, np.ndarray]
+    output: State
+    logical: dict[str, np.ndarray] = field(repr=False)
+
+    def nbytes(self) -> int:
+        """Resident bytes of every buffer of this problem (padding included)."""
+        return sum(s.data.nbytes for s in self.fields.values()) + self.output.data.nbytes + sum(
+            a.nbytes for a in self.arrays.values()
+        )
+
+
+@dataclass(frozen=True)
+class Bound:
+    """A kernel build with its arguments fixed: calling it runs the kernel once."""
+
+    dispatcher: Any
+    args: tuple[Any, ...]
+
+    def __call__(self) -> Any:
+        return self.dispatcher(*self.args)
+
+
+@dataclass(frozen=True)
+class Validation:
+    """Outcome of comparing a build's output with the reference."""
+
+    ok: bool
+    max_rel_error: float
+    tolerance: float
+    message: str
+
+
+class Kernel(ABC):
+    """A computation over a state: reference, schedules, flop count and compulsory-traffic model."""
+
+    name: str
+    family: str
+    summary: str
+    schedules: tuple[Schedule, ...]
+    #: Value of padding elements per input field (default 0), e.g. 1 on a main diagonal so
+    #: padded columns stay solvable.
+    padding_value: dict[str, float] = {}
+
+    # -- inputs ---------------------------------------------------------------------------
+    @abstractmethod
+    def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
+        """Deterministic logical inputs: 4-D ``(var, z, y, x)`` fields (var=1 for shared fields) or 1-D arrays."""
+
+    def make_problem(self, layout: Layout | str, extents: Extents, dtype: Any = "float64", seed: int = 0) -> Problem:
+        """Allocate and fill the inputs and output of one call in ``layout``."""
+        layout, dt = as_layout(layout), check_dtype(dtype)
+        logical = self.logical_inputs(extents, dt, seed)
+        fields, arrays = {}, {}
+        for key, values in logical.items():
+            if values.ndim == 4:
+                fields[key] = State.zeros(layout, Extents(*values.shape), dt)
+                fields[key].data[...] = self.padding_value.get(key, 0)
+                fields[key].assign_logical(values)
+            else:
+                arrays[key] = np.ascontiguousarray(values, dtype=dt)
+        output = State.zeros(layout, extents, dt)
+        return Problem(self.name, layout, extents, dt, seed, fields, arrays, output, logical)
+
+    # -- computation ----------------------------------------------------------------------
+    @abstractmethod
+    def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
+        """The oracle: the logical ``(var, z, y, x)`` output computed with NumPy/SciPy."""
+
+    @abstractmethod
+    def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
+        """The compiled implementation serving ``schedule`` for this problem, and its arguments."""
+
+    def bind(self, problem: Problem, schedule: Schedule | str, build: str = "parallel") -> Bound:
+        """Fix the arguments of one build; per-thread workspaces are sized for the current thread count."""
+        if build not in BUILDS:
+            raise ValueError(f"unknown build '{build}'; valid: {', '.join(BUILDS)}")
+        self.check_problem(problem)
+        impl, args = self.implementation(problem, self.schedule(schedule))
+        return Bound(getattr(impl, build), args)
+
+    def check_problem(self, problem: Problem) -> None:
+        """Refuse inputs of the wrong layout, extents or dtype before any compiled code sees them."""
+        from kernels.errors import KernelError
+
+        out = problem.output
+        for key, st in problem.fields.items():
+            expected = out.extents.replace(var=st.extents.var) if st.extents.var == 1 else out.extents
+            if st.layout.tokens != out.layout.tokens or st.extents != expected or st.dtype != out.dtype:
+                raise KernelError(
+                    f"{self.name}: input '{key}' is {st.layout.spec} {st.extents} {st.dtype.name}, expected "
+                    f"{out.layout.spec} {expected} {out.dtype.name} like the output"
+                )
+        for key, arr in problem.arrays.items():
+            if arr.dtype != out.dtype or arr.shape != (out.extents.z,):
+                raise KernelError(
+                    f"{self.name}: input '{key}' has shape {arr.shape} {arr.dtype}, expected ({out.extents.z},) {out.dtype.name}"
+                )
+
+    def schedule(self, schedule: Schedule | str) -> Schedule:
+        if isinstance(schedule, Schedule):
+            return schedule
+        for s in self.schedules:
+            if s.name == schedule:
+                return s
+        from kernels.errors import KernelError
+
+        names = ", ".join(s.name for s in self.schedules)
+        raise KernelError(f"kernel '{self.name}' has no schedule '{schedule}'; its schedules: {names}")
+
+    # -- models ---------------------------------------------------------------------------
+    @abstractmethod
+    def flops(self, extents: Extents) -> int:
+        """Floating-point operations of one call, as executed (a division counts as one)."""
+
+    @abstractmethod
+    def traffic_bytes(self, extents: Extents, dtype: Any) -> int:
+        """Compulsory memory traffic of one call: each array read or written counted once,
+        logical elements only, no write-allocate (the STREAM counting convention)."""
+
+    @abstractmethod
+    def tolerance(self, dtype: Any) -> float:
+        """Largest accepted ``max|out - ref| / max|ref|``."""
+
+    # -- validation -----------------------------------------------------------------------
+    def validate(self, problem: Problem, schedule: Schedule | str, build: str = "parallel") -> Validation:
+        """Run one build and compare its output with the reference; never raises on a wrong answer."""
+        out = problem.output
+        out.data[...] = np.nan  # anything the kernel fails to write shows up as NaN
+        self.bind(problem, schedule, build)()
+        got = out.to_logical()
+        ref = self.reference(problem.logical)
+        tol = self.tolerance(problem.dtype)
+        if not np.all(np.isfinite(got)):
+            bad = int(np.count_nonzero(~np.isfinite(got)))
+            return Validation(False, float("inf"), tol, f"{bad} of {got.size} outputs are not finite")
+        scale = float(np.max(np.abs(ref))) or 1.0
+        err = float(np.max(np.abs(got.astype(np.float64) - ref.astype(np.float64)))) / scale
+        if err <= tol:
+            return Validation(True, err, tol, "ok")
+        return Validation(False, err, tol, f"max relative error {err:.3g} exceeds tolerance {tol:.3g}")

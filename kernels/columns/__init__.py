@@ -1,0 +1,1 @@
+"""Column tridiagonal solves (Thomas algorithm) over every (variable, column)."""

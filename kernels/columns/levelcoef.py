@@ -1,0 +1,128 @@
+"""``levelcoef``: coefficients depend on the level only (1-D); right-hand side and solution are 3-D.
+
+The factorisation is done once per call (O(nz)); each column then only runs the substitutions,
+so the kernel moves two fields instead of five and layouts rank differently than for varcoef.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from numba import prange
+
+from kernels.base import Kernel, Problem, Schedule
+from kernels.columns.common import (
+    COLUMN,
+    STRIP,
+    STRIP_WIDTH,
+    column_tolerance,
+    column_view,
+    diffusion_coefficients,
+    interface_diffusivity,
+    right_hand_side,
+    thomas_reference,
+)
+from kernels.grid import Extents
+from kernels.jit import Compiled, build, inline
+from kernels.parallel import chunk, thread_count
+from kernels.registry import register
+
+
+@inline
+def factorise_levels(a, b, c, nz, one, fac):  # type: ignore[no-untyped-def]
+    """fac[0] = modified super-diagonal c', fac[1] = reciprocal pivots 1/m."""
+    fac[1, 0] = one / b[0]
+    fac[0, 0] = c[0] * fac[1, 0]
+    for k in range(1, nz):
+        fac[1, k] = one / (b[k] - a[k] * fac[0, k - 1])
+        fac[0, k] = c[k] * fac[1, k]
+
+
+def solve_columns(a, b, c, d, x, nz, one, fac, nchunks):  # type: ignore[no-untyped-def]
+    """Substitutions along z, one column at a time, over (outer, z, inner) views."""
+    factorise_levels(a, b, c, nz, one, fac)
+    inner = d.shape[2]
+    ncol = d.shape[0] * inner
+    for t in prange(nchunks):
+        lo, hi = chunk(ncol, nchunks, t)
+        for col in range(lo, hi):
+            o = col // inner
+            i = col - o * inner
+            x[o, 0, i] = d[o, 0, i] * fac[1, 0]
+            for k in range(1, nz):
+                x[o, k, i] = (d[o, k, i] - a[k] * x[o, k - 1, i]) * fac[1, k]
+            for k in range(nz - 2, -1, -1):
+                x[o, k, i] -= fac[0, k] * x[o, k + 1, i]
+
+
+def solve_strips(a, b, c, d, x, nz, one, fac, nchunks, width):  # type: ignore[no-untyped-def]
+    """Substitutions over strips of ``width`` adjacent columns; inner loop along the strip."""
+    factorise_levels(a, b, c, nz, one, fac)
+    inner = d.shape[2]
+    nstrip = (inner + width - 1) // width
+    nitems = d.shape[0] * nstrip
+    for t in prange(nchunks):
+        lo, hi = chunk(nitems, nchunks, t)
+        for item in range(lo, hi):
+            o = item // nstrip
+            s0 = (item - o * nstrip) * width
+            w = min(width, inner - s0)
+            r0 = fac[1, 0]
+            for ii in range(w):
+                i = np.uintp(s0 + ii)  # unsigned: no negative-index wrap, so SIMD
+                x[o, 0, i] = d[o, 0, i] * r0
+            for k in range(1, nz):
+                ak, rk = a[k], fac[1, k]
+                for ii in range(w):
+                    i = np.uintp(s0 + ii)
+                    x[o, k, i] = (d[o, k, i] - ak * x[o, k - 1, i]) * rk
+            for k in range(nz - 2, -1, -1):
+                ck = fac[0, k]
+                for ii in range(w):
+                    i = np.uintp(s0 + ii)
+                    x[o, k, i] -= ck * x[o, k + 1, i]
+
+
+COLUMNS = build(solve_columns)
+STRIPS = build(solve_strips)
+
+
+class LevelCoef(Kernel):
+    name = "levelcoef"
+    family = "columns"
+    summary = "tridiagonal solve per (variable, column); a, b, c per level only (1-D), d 3-D"
+    schedules = (COLUMN, STRIP)
+
+    def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
+        a, b, c = diffusion_coefficients(interface_diffusivity(extents.z).reshape(1, -1), dt=600.0)
+        d = right_hand_side(extents, seed + 1)
+        return {"a": a[0].astype(dtype), "b": b[0].astype(dtype), "c": c[0].astype(dtype), "d": d.astype(dtype)}
+
+    def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
+        level = lambda v: v.reshape(1, -1, 1, 1)  # noqa: E731
+        return thomas_reference(level(logical["a"]), level(logical["b"]), level(logical["c"]), logical["d"])
+
+    def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
+        arr, ext, dt = problem.arrays, problem.extents, problem.dtype
+        common = (arr["a"], arr["b"], arr["c"], column_view(problem.fields["d"]), column_view(problem.output))
+        fac = np.zeros((2, ext.z), dt)
+        if schedule.name == "column":
+            return COLUMNS, (*common, ext.z, dt.type(1), fac, thread_count())
+        return STRIPS, (*common, ext.z, dt.type(1), fac, thread_count(), schedule.param("width", STRIP_WIDTH))
+
+    def flops(self, extents: Extents) -> int:
+        # Factorisation once: 2 + 4(n-1). Per column: forward 1 + 3(n-1), back 2(n-1).
+        n = extents.z
+        return (2 + 4 * (n - 1)) + extents.var * extents.y * extents.x * (5 * n - 4)
+
+    def traffic_bytes(self, extents: Extents, dtype: Any) -> int:
+        # Read d, write x (var*z*y*x each); read a, b, c (z each).
+        item = np.dtype(dtype).itemsize
+        return (2 * extents.points + 3 * extents.z) * item
+
+    def tolerance(self, dtype: Any) -> float:
+        return column_tolerance(dtype)
+
+
+register(LevelCoef())

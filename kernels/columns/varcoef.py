@@ -1,0 +1,125 @@
+"""``varcoef``: every (variable, column) has its own tridiagonal system, all four 3-D fields.
+
+Source: backward-Euler vertical diffusion on a stretched grid, with a diffusivity varying with
+height, horizontally and per variable.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+from numba import prange
+
+from kernels.base import Kernel, Problem, Schedule
+from kernels.columns.common import (
+    COLUMN,
+    STRIP,
+    column_tolerance,
+    column_view,
+    diffusion_coefficients,
+    interface_diffusivity,
+    right_hand_side,
+    thomas_reference,
+)
+from kernels.grid import Extents
+from kernels.jit import Compiled, build
+from kernels.parallel import chunk, thread_count
+from kernels.registry import register
+
+
+def solve_columns(a, b, c, d, x, nz, one, cp):  # type: ignore[no-untyped-def]
+    """Thomas along z for each column of the (outer, z, inner) views; cp is (threads, nz) scratch."""
+    inner = a.shape[2]
+    ncol = a.shape[0] * inner
+    nchunks = cp.shape[0]
+    for t in prange(nchunks):
+        lo, hi = chunk(ncol, nchunks, t)
+        for col in range(lo, hi):
+            o = col // inner
+            i = col - o * inner
+            inv = one / b[o, 0, i]
+            cp[t, 0] = c[o, 0, i] * inv
+            x[o, 0, i] = d[o, 0, i] * inv
+            for k in range(1, nz):
+                m = one / (b[o, k, i] - a[o, k, i] * cp[t, k - 1])
+                cp[t, k] = c[o, k, i] * m
+                x[o, k, i] = (d[o, k, i] - a[o, k, i] * x[o, k - 1, i]) * m
+            for k in range(nz - 2, -1, -1):
+                x[o, k, i] -= cp[t, k] * x[o, k + 1, i]
+
+
+def solve_strips(a, b, c, d, x, nz, one, cp):  # type: ignore[no-untyped-def]
+    """Thomas over strips of ``cp.shape[2]`` adjacent columns; inner loop along the strip."""
+    inner = a.shape[2]
+    width = cp.shape[2]
+    nstrip = (inner + width - 1) // width
+    nitems = a.shape[0] * nstrip
+    nchunks = cp.shape[0]
+    for t in prange(nchunks):
+        lo, hi = chunk(nitems, nchunks, t)
+        for item in range(lo, hi):
+            o = item // nstrip
+            s0 = (item - o * nstrip) * width
+            w = min(width, inner - s0)
+            for ii in range(w):
+                s, i = np.uintp(ii), np.uintp(s0 + ii)  # unsigned: no negative-index wrap, so SIMD
+                inv = one / b[o, 0, i]
+                cp[t, 0, s] = c[o, 0, i] * inv
+                x[o, 0, i] = d[o, 0, i] * inv
+            for k in range(1, nz):
+                for ii in range(w):
+                    s, i = np.uintp(ii), np.uintp(s0 + ii)
+                    m = one / (b[o, k, i] - a[o, k, i] * cp[t, k - 1, s])
+                    cp[t, k, s] = c[o, k, i] * m
+                    x[o, k, i] = (d[o, k, i] - a[o, k, i] * x[o, k - 1, i]) * m
+            for k in range(nz - 2, -1, -1):
+                for ii in range(w):
+                    s, i = np.uintp(ii), np.uintp(s0 + ii)
+                    x[o, k, i] -= cp[t, k, s] * x[o, k + 1, i]
+
+
+COLUMNS = build(solve_columns)
+STRIPS = build(solve_strips)
+
+
+class VarCoef(Kernel):
+    name = "varcoef"
+    family = "columns"
+    summary = "tridiagonal solve per (variable, column); a, b, c, d all 3-D fields"
+    schedules = (COLUMN, STRIP)
+    padding_value = {"b": 1.0}  # padded columns solve x = d = 0 instead of dividing by zero
+
+    def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
+        rng = np.random.default_rng(seed)
+        profile = interface_diffusivity(extents.z).reshape(1, -1, 1, 1)
+        noise = rng.uniform(0.5, 1.5, size=(extents.var, extents.z - 1, extents.y, extents.x))
+        a, b, c = diffusion_coefficients(profile * noise, dt=600.0)
+        d = right_hand_side(extents, seed + 1)
+        return {k: v.astype(dtype) for k, v in {"a": a, "b": b, "c": c, "d": d}.items()}
+
+    def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
+        return thomas_reference(logical["a"], logical["b"], logical["c"], logical["d"])
+
+    def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
+        f, ext, dt = problem.fields, problem.extents, problem.dtype
+        views = tuple(column_view(f[k]) for k in "abcd") + (column_view(problem.output),)
+        if schedule.name == "column":
+            return COLUMNS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z), dt))
+        width = schedule.param("width", 32)
+        return STRIPS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z, width), dt))
+
+    def flops(self, extents: Extents) -> int:
+        # Per column of n levels: first row 3, rows 1..n-1 7 each (forward), 2 each (back).
+        n = extents.z
+        return extents.var * extents.y * extents.x * (9 * n - 6)
+
+    def traffic_bytes(self, extents: Extents, dtype: Any) -> int:
+        # Read a, b, c, d; write x: five fields of var*z*y*x elements.
+        return 5 * extents.points * np.dtype(dtype).itemsize
+
+    def tolerance(self, dtype: Any) -> float:
+        return column_tolerance(dtype)
+
+
+register(VarCoef())

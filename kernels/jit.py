@@ -1,0 +1,157 @@
+"""Compilation policy shared by every kernel: options, on-disk cache, serial twins, empty twins.
+
+numba's cache only notices edits to the file defining a function, so the cache directory is
+keyed by a hash of the whole ``kernels/`` source: stale machine code is never loaded.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import inspect
+import os
+import re
+import time
+import types
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numba
+from numba import config as numba_config
+
+#: Options of every compiled kernel. ``error_model="numpy"`` drops the zero-divisor check that
+#: blocks SIMD; fastmath stays off so results match the references.
+JIT_OPTIONS: dict[str, Any] = {"error_model": "numpy", "fastmath": False, "cache": True, "nogil": True, "boundscheck": False}
+
+_KERNELS_DIR = Path(__file__).resolve().parent
+
+
+def source_hash() -> str:
+    """SHA-256 (first 16 hex digits) of every ``.py`` file under ``kernels/``."""
+    digest = hashlib.sha256()
+    for path in sorted(_KERNELS_DIR.rglob("*.py")):
+        digest.update(str(path.relative_to(_KERNELS_DIR)).encode())
+        digest.update(path.read_bytes())
+    return digest.hexdigest()[:16]
+
+
+SOURCE_HASH = source_hash()
+
+
+def cache_dir() -> str:
+    """Where compiled kernels are cached: ``$NUMBA_CACHE_DIR`` or ``~/.cache/stridewise``, then the source hash."""
+    base = os.environ.get("NUMBA_CACHE_DIR") or os.path.join(
+        os.environ.get("XDG_CACHE_HOME", os.path.expanduser("~/.cache")), "stridewise", "numba"
+    )
+    return os.path.join(base, SOURCE_HASH)
+
+
+# Must be set before any kernel is decorated: numba reads it when caching is enabled.
+numba_config.CACHE_DIR = cache_dir()
+
+
+def _twin(fn: Callable[..., Any], suffix: str) -> Callable[..., Any]:
+    """A copy of ``fn`` under another name, so its cache entries never collide with the original's."""
+    twin = types.FunctionType(fn.__code__, fn.__globals__, fn.__name__ + suffix, fn.__defaults__, fn.__closure__)
+    twin.__qualname__ = fn.__qualname__ + suffix
+    twin.__module__ = fn.__module__
+    twin.__doc__ = fn.__doc__
+    return twin
+
+
+def _empty_of(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """A parallel function of the same parameters whose loop body does nothing but exist.
+
+    The prange still forks and joins the thread pool, so timing it measures dispatch plus
+    fork/join overhead for the same argument types.
+    """
+    params = ", ".join(inspect.signature(fn).parameters)
+    src = (
+        f"def empty_{fn.__name__}({params}):\n"
+        "    total = 0\n"
+        "    for t in prange(get_num_threads()):\n"
+        "        total += t\n"
+        "    return total\n"
+    )
+    namespace: dict[str, Any] = {"prange": numba.prange, "get_num_threads": numba.get_num_threads}
+    exec(compile(src, f"<empty twin of {fn.__qualname__}>", "exec"), namespace)  # noqa: S102 - trusted template
+    return namespace[f"empty_{fn.__name__}"]
+
+
+@dataclass(frozen=True)
+class Compiled:
+    """The builds of one kernel implementation: threaded, single-threaded and empty."""
+
+    name: str
+    py_func: Callable[..., Any]
+    parallel: Any
+    serial: Any
+    empty: Any
+
+
+def build(fn: Callable[..., Any]) -> Compiled:
+    """Compile lazily ``fn`` as a threaded build, a ``parallel=False`` twin and an empty twin."""
+    opts = dict(JIT_OPTIONS)
+    return Compiled(
+        name=fn.__qualname__,
+        py_func=fn,
+        parallel=numba.njit(parallel=True, **opts)(fn),
+        serial=numba.njit(parallel=False, **opts)(_twin(fn, "_serial")),
+        empty=numba.njit(parallel=True, error_model="numpy", cache=False)(_empty_of(fn)),
+    )
+
+
+inline = numba.njit(inline="always", **{k: v for k, v in JIT_OPTIONS.items() if k != "cache"})
+
+
+@dataclass(frozen=True)
+class CompileRecord:
+    """How one specialisation got its machine code."""
+
+    name: str
+    signature: str
+    seconds: float
+    from_cache: bool
+
+
+def ensure_compiled(dispatcher: Any, args: tuple[Any, ...]) -> CompileRecord | None:
+    """Compile (or load from cache) ``dispatcher`` for ``args``; None if it was ready already."""
+    sig = tuple(numba.typeof(a) for a in args)
+    if sig in dispatcher.overloads:
+        return None
+    hits_before = sum(dispatcher.stats.cache_hits.values())
+    start = time.perf_counter()
+    dispatcher.compile(sig)
+    seconds = time.perf_counter() - start
+    from_cache = sum(dispatcher.stats.cache_hits.values()) > hits_before
+    return CompileRecord(dispatcher.py_func.__qualname__, str(sig), seconds, from_cache)
+
+
+_PACKED = re.compile(r"^\s*v?(?:add|sub|mul|div|fmadd\d*|fnmadd\d*|fmsub\d*|fnmsub\d*|min|max)p[sd]\s", re.M)
+_SCALAR = re.compile(r"^\s*v?(?:add|sub|mul|div|fmadd\d*|fnmadd\d*|fmsub\d*|fnmsub\d*)s[sd]\s", re.M)
+_WIDEST = re.compile(r"%([xyz])mm\d+")
+
+
+def vector_report(compiled: Compiled, args: tuple[Any, ...], parallel: bool = True) -> dict[str, Any]:
+    """Count packed (SIMD) and scalar floating-point arithmetic in the machine code for ``args``.
+
+    numba cannot show the assembly of code loaded from its cache, so this compiles a private,
+    uncached copy with the same options. ``vectorised`` is true when packed arithmetic appears
+    (the threaded build's outlined loop body included); the widest register class used by packed
+    code gives the vector width (xmm 128, ymm 256, zmm 512 bits).
+    """
+    opts = {k: v for k, v in JIT_OPTIONS.items() if k != "cache"}
+    dispatcher = numba.njit(parallel=parallel, **opts)(compiled.py_func)
+    sig = tuple(numba.typeof(a) for a in args)
+    dispatcher.compile(sig)
+    asm = dispatcher.inspect_asm(sig)
+    packed_lines = [line for line in asm.splitlines() if _PACKED.match(line)]
+    regs = {m for line in packed_lines for m in _WIDEST.findall(line)}
+    width = {"z": 512, "y": 256, "x": 128}
+    return {
+        "packed_fp_ops": len(packed_lines),
+        "scalar_fp_ops": len(_SCALAR.findall(asm)),
+        "vector_bits": max((width[r] for r in regs), default=0),
+        "vectorised": bool(packed_lines),
+    }

@@ -1,0 +1,53 @@
+"""The kernel registry: every kernel module registers one instance at import."""
+
+from __future__ import annotations
+
+import difflib
+import importlib
+import pkgutil
+from typing import TYPE_CHECKING
+
+from kernels.errors import KernelError
+
+if TYPE_CHECKING:
+    from kernels.base import Kernel
+
+_REGISTRY: dict[str, Kernel] = {}
+_FAMILY_PACKAGES = ("kernels.columns", "kernels.stencils")
+
+
+def register(kernel: Kernel) -> Kernel:
+    """Add a kernel; its name must be new."""
+    if kernel.name in _REGISTRY and type(_REGISTRY[kernel.name]) is not type(kernel):
+        raise KernelError(f"kernel name '{kernel.name}' is registered twice")
+    _REGISTRY[kernel.name] = kernel
+    return kernel
+
+
+def unregister(name: str) -> None:
+    """Remove a kernel (used by tests that register deliberately broken ones)."""
+    _REGISTRY.pop(name, None)
+
+
+def _load_all() -> None:
+    for package_name in _FAMILY_PACKAGES:
+        package = importlib.import_module(package_name)
+        for info in pkgutil.iter_modules(package.__path__):
+            if info.name != "common":
+                importlib.import_module(f"{package_name}.{info.name}")
+
+
+def all_kernels() -> dict[str, Kernel]:
+    """Every registered kernel by name, in registration order."""
+    _load_all()
+    return dict(_REGISTRY)
+
+
+def get_kernel(name: str) -> Kernel:
+    """The kernel called ``name``; a KernelError suggests close matches otherwise."""
+    kernels = all_kernels()
+    if name in kernels:
+        return kernels[name]
+    close = difflib.get_close_matches(name, list(kernels), n=1)
+    hint = f" (did you mean '{close[0]}'?)" if close else ""
+    raise KernelError(f"unknown kernel '{name}'{hint}; valid kernels: {', '.join(kernels)}")
