@@ -1,0 +1,1 @@
+"""Doubly periodic horizontal stencils applied to every variable and level."""
