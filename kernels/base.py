@@ -87,9 +87,16 @@ class Kernel(ABC):
         """Deterministic logical inputs: 4-D ``(var, z, y, x)`` fields (var=1 for shared fields) or 1-D arrays."""
 
     def make_problem(self, layout: Layout | str, extents: Extents, dtype: Any = "float64", seed: int = 0) -> Problem:
-        """Allocate and fill the inputs and output of one call in ``layout``."""
+        """Allocate and fill the inputs and output of one call in ``layout``, from seeded inputs."""
+        dt = check_dtype(dtype)
+        return self.problem_from(layout, self.logical_inputs(extents, dt, seed), dt, seed)
+
+    def problem_from(self, layout: Layout | str, logical: dict[str, np.ndarray], dtype: Any, seed: int = -1) -> Problem:
+        """A problem with given logical inputs (same keys and shapes as ``logical_inputs`` makes)."""
         layout, dt = as_layout(layout), check_dtype(dtype)
-        logical = self.logical_inputs(extents, dt, seed)
+        logical = {k: np.asarray(v, dtype=dt) for k, v in logical.items()}
+        full = [v for v in logical.values() if v.ndim == 4 and v.shape[0] > 1] or [v for v in logical.values() if v.ndim == 4]
+        extents = Extents(*full[0].shape)
         fields, arrays = {}, {}
         for key, values in logical.items():
             if values.ndim == 4:
@@ -97,7 +104,7 @@ class Kernel(ABC):
                 fields[key].data[...] = self.padding_value.get(key, 0)
                 fields[key].assign_logical(values)
             else:
-                arrays[key] = np.ascontiguousarray(values, dtype=dt)
+                arrays[key] = np.ascontiguousarray(values)
         output = State.zeros(layout, extents, dt)
         return Problem(self.name, layout, extents, dt, seed, fields, arrays, output, logical)
 
@@ -165,16 +172,20 @@ class Kernel(ABC):
     def validate(self, problem: Problem, schedule: Schedule | str, build: str = "parallel") -> Validation:
         """Run one build and compare its output with the reference; never raises on a wrong answer."""
         out = problem.output
+        sched = self.schedule(schedule)
+        case = f"{self.name}/{sched.name} ({build}) in {problem.layout.spec} {problem.dtype.name}"
         out.data[...] = np.nan  # anything the kernel fails to write shows up as NaN
-        self.bind(problem, schedule, build)()
+        self.bind(problem, sched, build)()
         got = out.to_logical()
         ref = self.reference(problem.logical)
         tol = self.tolerance(problem.dtype)
         if not np.all(np.isfinite(got)):
             bad = int(np.count_nonzero(~np.isfinite(got)))
-            return Validation(False, float("inf"), tol, f"{bad} of {got.size} outputs are not finite")
+            return Validation(
+                False, float("inf"), tol, f"{case}: {bad} of {got.size} outputs are not finite (singular or non-finite inputs?)"
+            )
         scale = float(np.max(np.abs(ref))) or 1.0
         err = float(np.max(np.abs(got.astype(np.float64) - ref.astype(np.float64)))) / scale
         if err <= tol:
             return Validation(True, err, tol, "ok")
-        return Validation(False, err, tol, f"max relative error {err:.3g} exceeds tolerance {tol:.3g}")
+        return Validation(False, err, tol, f"{case}: max relative error {err:.3g} exceeds tolerance {tol:.3g}")
