@@ -15,6 +15,7 @@ from kernels.base import Kernel, Problem, Schedule
 from kernels.columns.common import (
     COLUMN,
     STRIP,
+    STRIP_WIDTH,
     column_tolerance,
     column_view,
     diffusion_coefficients,
@@ -106,7 +107,7 @@ class VarCoef(Kernel):
         views = tuple(column_view(f[k]) for k in "abcd") + (column_view(problem.output),)
         if schedule.name == "column":
             return COLUMNS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z), dt))
-        width = schedule.param("width", 32)
+        width = schedule.param("width", STRIP_WIDTH)
         return STRIPS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z, width), dt))
 
     def flops(self, extents: Extents) -> int:
