@@ -1,0 +1,191 @@
+"""The machine fingerprint: what a run's numbers depend on, and a stable id to match runs by."""
+
+from __future__ import annotations
+
+import glob
+import hashlib
+import math
+import os
+import platform
+import subprocess
+import sys
+from pathlib import Path
+from typing import Any
+
+THREADING_ENV_PREFIXES = ("OMP_", "NUMBA_", "KMP_", "OPENBLAS_", "MKL_", "GOMP_")
+
+
+def _read(path: str) -> str | None:
+    try:
+        return Path(path).read_text().strip()
+    except OSError:
+        return None
+
+
+def _size_bytes(text: str | None) -> int | None:
+    if not text:
+        return None
+    units = {"K": 1 << 10, "M": 1 << 20, "G": 1 << 30}
+    if text[-1] in units:
+        return int(text[:-1]) * units[text[-1]]
+    return int(text)
+
+
+def cpu_model() -> str:
+    for line in (_read("/proc/cpuinfo") or "").splitlines():
+        if line.startswith("model name"):
+            return line.split(":", 1)[1].strip()
+    return platform.processor() or platform.machine()
+
+
+def usable_cores() -> int:
+    """Cores this process may use: its CPU affinity, capped by a cgroup CPU quota if one is set."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except AttributeError:  # not Linux
+        cores = os.cpu_count() or 1
+    quota = _read("/sys/fs/cgroup/cpu.max")  # cgroup v2: "max 100000" or "200000 100000"
+    if quota and not quota.startswith("max"):
+        q, period = quota.split()
+        cores = min(cores, max(1, math.ceil(int(q) / int(period))))
+    else:
+        q1, p1 = _read("/sys/fs/cgroup/cpu/cpu.cfs_quota_us"), _read("/sys/fs/cgroup/cpu/cpu.cfs_period_us")
+        if q1 and p1 and int(q1) > 0:
+            cores = min(cores, max(1, math.ceil(int(q1) / int(p1))))
+    return cores
+
+
+def smt_siblings() -> list[str]:
+    """Groups of logical CPUs sharing one physical core, e.g. ['0,4', '1,5']."""
+    groups = {
+        _read(p) or "" for p in glob.glob("/sys/devices/system/cpu/cpu[0-9]*/topology/thread_siblings_list")
+    }
+    return sorted(g for g in groups if g)
+
+
+def caches() -> list[dict[str, Any]]:
+    """Caches of CPU 0 as the OS reports them (on a virtual machine these may be the host's)."""
+    out = []
+    for index in sorted(glob.glob("/sys/devices/system/cpu/cpu0/cache/index*")):
+        out.append(
+            {
+                "level": int(_read(f"{index}/level") or 0),
+                "type": _read(f"{index}/type"),
+                "bytes": _size_bytes(_read(f"{index}/size")),
+                "shared_with": _read(f"{index}/shared_cpu_list"),
+            }
+        )
+    return out
+
+
+def last_level_cache_bytes() -> int | None:
+    sizes = [c["bytes"] for c in caches() if c["bytes"] and c["type"] in ("Unified", "Data")]
+    return max(sizes) if sizes else None
+
+
+def memory() -> dict[str, int]:
+    out = {}
+    for line in (_read("/proc/meminfo") or "").splitlines():
+        key, _, rest = line.partition(":")
+        if key in ("MemTotal", "MemAvailable"):
+            out[key] = int(rest.split()[0]) * 1024
+    return out
+
+
+def available_memory_bytes() -> int | None:
+    return memory().get("MemAvailable")
+
+
+def governor() -> dict[str, Any]:
+    base = "/sys/devices/system/cpu/cpu0/cpufreq"
+    cur = _read(f"{base}/scaling_cur_freq")
+    return {
+        "governor": _read(f"{base}/scaling_governor"),
+        "cur_khz": int(cur) if cur else None,
+        "max_khz": int(_read(f"{base}/cpuinfo_max_freq") or 0) or None,
+    }
+
+
+def governor_warning(info: dict[str, Any]) -> str | None:
+    """A warning when the frequency governor lets the clock float during timing."""
+    gov = info.get("governor")
+    if gov and gov != "performance":
+        return f"CPU frequency governor is '{gov}': the clock may change during timing; 'performance' pins it"
+    return None
+
+
+def git_commit(path: Path) -> str | None:
+    try:
+        out = subprocess.run(["git", "-C", str(path), "rev-parse", "HEAD"], capture_output=True, text=True, timeout=5)
+        dirty = subprocess.run(["git", "-C", str(path), "status", "--porcelain"], capture_output=True, text=True, timeout=5)
+    except (OSError, subprocess.TimeoutExpired):
+        return None
+    if out.returncode != 0:
+        return None
+    return out.stdout.strip() + ("+dirty" if dirty.stdout.strip() else "")
+
+
+def numba_target() -> dict[str, Any]:
+    import llvmlite.binding as llvm
+
+    features = llvm.get_host_cpu_features().flatten().split(",")
+    return {
+        "cpu_name": llvm.get_host_cpu_name(),
+        "features": sorted(f[1:] for f in features if f.startswith("+")),
+    }
+
+
+def threading_env() -> dict[str, str]:
+    return {k: v for k, v in sorted(os.environ.items()) if k.startswith(THREADING_ENV_PREFIXES)}
+
+
+def fingerprint() -> dict[str, Any]:
+    """Everything about this machine and software that a run's numbers depend on."""
+    import llvmlite
+    import numba
+    import numpy
+
+    from harness import __version__
+    from kernels.jit import SOURCE_HASH
+
+    mem = memory()
+    numa = sorted(os.path.basename(p) for p in glob.glob("/sys/devices/system/node/node[0-9]*"))
+    info: dict[str, Any] = {
+        "cpu_model": cpu_model(),
+        "logical_cpus": os.cpu_count(),
+        "physical_cores": len(smt_siblings()) or None,
+        "smt_siblings": smt_siblings(),
+        "usable_cores": usable_cores(),
+        "affinity": sorted(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else None,
+        "caches": caches(),
+        "numa_nodes": numa,
+        "memory_bytes": mem.get("MemTotal"),
+        "os": platform.platform(),
+        "python": sys.version.split()[0],
+        "numpy": numpy.__version__,
+        "numba": numba.__version__,
+        "llvmlite": llvmlite.__version__,
+        "numba_target": numba_target(),
+        "transparent_hugepages": _read("/sys/kernel/mm/transparent_hugepage/enabled"),
+        "cpufreq": governor(),
+        "threading_env": threading_env(),
+        "stridewise": __version__,
+        "commit": git_commit(Path(__file__).resolve().parent.parent),
+        "kernels_source_hash": SOURCE_HASH,
+    }
+    info["machine_id"] = machine_id(info)
+    return info
+
+
+def machine_id(info: dict[str, Any]) -> str:
+    """Stable id from hardware facts only (never the hostname), 12 hex digits."""
+    facts = {
+        "cpu": info["cpu_model"],
+        "logical": info["logical_cpus"],
+        "physical": info["physical_cores"],
+        "caches": [(c["level"], c["type"], c["bytes"]) for c in info["caches"]],
+        "numa": len(info["numa_nodes"]),
+        "memory_gib": round((info["memory_bytes"] or 0) / 2**30),
+        "isa": info["numba_target"]["cpu_name"],
+    }
+    return hashlib.sha256(repr(sorted(facts.items())).encode()).hexdigest()[:12]
