@@ -11,7 +11,7 @@ import numpy as np
 from kernels.grid import Extents, check_dtype
 from kernels.jit import Compiled
 from kernels.layout import Layout, as_layout
-from kernels.state import State
+from kernels.state import State, Toucher
 
 BUILDS = ("parallel", "serial", "empty")
 
@@ -86,12 +86,19 @@ class Kernel(ABC):
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         """Deterministic logical inputs: 4-D ``(var, z, y, x)`` fields (var=1 for shared fields) or 1-D arrays."""
 
-    def make_problem(self, layout: Layout | str, extents: Extents, dtype: Any = "float64", seed: int = 0) -> Problem:
-        """Allocate and fill the inputs and output of one call in ``layout``, from seeded inputs."""
-        dt = check_dtype(dtype)
-        return self.problem_from(layout, self.logical_inputs(extents, dt, seed), dt, seed)
+    def make_problem(
+        self, layout: Layout | str, extents: Extents, dtype: Any = "float64", seed: int = 0, toucher: Toucher | None = None
+    ) -> Problem:
+        """Allocate and fill the inputs and output of one call in ``layout``, from seeded inputs.
 
-    def problem_from(self, layout: Layout | str, logical: dict[str, np.ndarray], dtype: Any, seed: int = -1) -> Problem:
+        ``toucher`` zeroes each fresh buffer (first touch) before values are written.
+        """
+        dt = check_dtype(dtype)
+        return self.problem_from(layout, self.logical_inputs(extents, dt, seed), dt, seed, toucher)
+
+    def problem_from(
+        self, layout: Layout | str, logical: dict[str, np.ndarray], dtype: Any, seed: int = -1, toucher: Toucher | None = None
+    ) -> Problem:
         """A problem with given logical inputs (same keys and shapes as ``logical_inputs`` makes)."""
         layout, dt = as_layout(layout), check_dtype(dtype)
         logical = {k: np.asarray(v, dtype=dt) for k, v in logical.items()}
@@ -100,13 +107,28 @@ class Kernel(ABC):
         fields, arrays = {}, {}
         for key, values in logical.items():
             if values.ndim == 4:
-                fields[key] = State.zeros(layout, Extents(*values.shape), dt)
+                fields[key] = State.zeros(layout, Extents(*values.shape), dt, toucher)
                 fields[key].data[...] = self.padding_value.get(key, 0)
                 fields[key].assign_logical(values)
             else:
                 arrays[key] = np.ascontiguousarray(values)
-        output = State.zeros(layout, extents, dt)
+        output = State.zeros(layout, extents, dt, toucher)
         return Problem(self.name, layout, extents, dt, seed, fields, arrays, output, logical)
+
+    def footprint(self, layout: Layout | str, extents: Extents, dtype: Any) -> int:
+        """Resident bytes of one problem (inputs and output, padding included), without allocating it."""
+        layout, dt = as_layout(layout), check_dtype(dtype)
+        total = layout.nbytes(extents, dt)  # the output
+        for shape in self.input_shapes(extents).values():
+            total += layout.nbytes(shape, dt) if isinstance(shape, Extents) else shape * dt.itemsize
+        return total
+
+    @abstractmethod
+    def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
+        """Extents of each 4-D input field (var=1 for shared fields) or length of each 1-D input."""
+
+    #: True if a call overwrites an input; the harness then restores inputs before each sample.
+    overwrites_inputs: bool = False
 
     # -- computation ----------------------------------------------------------------------
     @abstractmethod

@@ -3,8 +3,10 @@
 from __future__ import annotations
 
 import numba
+import numpy as np
+from numba import prange
 
-from kernels.jit import inline
+from kernels.jit import build, inline
 
 
 def thread_count() -> int:
@@ -20,3 +22,53 @@ def chunk(n_items, n_chunks, t):  # type: ignore[no-untyped-def]
     lo = t * base + min(t, extra)
     hi = lo + base + (1 if t < extra else 0)
     return lo, hi
+
+
+def _fill_blocks(buf, value, nchunks):  # type: ignore[no-untyped-def]
+    n = buf.shape[0]
+    for t in prange(nchunks):
+        lo, hi = chunk(n, nchunks, t)
+        for i in range(lo, hi):
+            buf[np.uintp(i)] = value
+
+
+def _copy_blocks(dst, src, nchunks):  # type: ignore[no-untyped-def]
+    n = dst.shape[0]
+    for t in prange(nchunks):
+        lo, hi = chunk(n, nchunks, t)
+        for i in range(lo, hi):
+            dst[np.uintp(i)] = src[np.uintp(i)]
+
+
+def _sweep_buffer(buf, nchunks):  # type: ignore[no-untyped-def]
+    """Read and write every cache line of ``buf`` (int64 words), each thread its own block."""
+    n = buf.shape[0]
+    total = 0
+    for t in prange(nchunks):
+        lo, hi = chunk(n, nchunks, t)
+        for i in range(lo, hi, 8):
+            buf[np.uintp(i)] += 1
+            total += buf[np.uintp(i)]
+    return total
+
+
+FILL = build(_fill_blocks)
+COPY = build(_copy_blocks)
+SWEEP = build(_sweep_buffer)
+
+
+def first_touch(raw: np.ndarray) -> None:
+    """Zero a fresh byte buffer with the threads of the current setting, each its own contiguous
+    block, so its pages are placed near the threads whose block partition will use them."""
+    words = raw.view(np.uint8)
+    FILL.parallel(words, np.uint8(0), thread_count())
+
+
+def parallel_copy(dst: np.ndarray, src: np.ndarray) -> None:
+    """Copy equal-size byte buffers with the same per-thread block partition as first_touch."""
+    COPY.parallel(dst.view(np.uint8).reshape(-1), src.view(np.uint8).reshape(-1), thread_count())
+
+
+def evict_caches(buf: np.ndarray) -> int:
+    """Touch every line of a large int64 buffer on every thread, pushing kernel data out of cache."""
+    return int(SWEEP.parallel(buf, thread_count()))

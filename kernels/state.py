@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
@@ -12,11 +13,23 @@ from kernels.grid import LOGICAL_AXES, Extents, check_dtype
 from kernels.layout import ALIGNMENT, TILES, WITHIN, Layout, as_layout
 
 
-def aligned_empty(nbytes: int, base_offset: int = 0) -> np.ndarray:
-    """A zeroed byte buffer of ``nbytes`` starting ``base_offset`` bytes past an ALIGNMENT boundary."""
+Toucher = Callable[[np.ndarray], None]
+
+
+def aligned_empty(nbytes: int, base_offset: int = 0, toucher: Toucher | None = None) -> np.ndarray:
+    """A zeroed byte buffer of ``nbytes`` starting ``base_offset`` bytes past an ALIGNMENT boundary.
+
+    ``toucher`` zeroes the fresh buffer itself (e.g. with a parallel loop, to place its pages by
+    first touch); by default NumPy zeroes it.
+    """
     if base_offset < 0:
         raise LayoutError(f"base offset must be >= 0 bytes, got {base_offset}")
-    owner = np.zeros(nbytes + ALIGNMENT + base_offset, dtype=np.uint8)
+    size = nbytes + ALIGNMENT + base_offset
+    if toucher is None:
+        owner = np.zeros(size, dtype=np.uint8)
+    else:
+        owner = np.empty(size, dtype=np.uint8)
+        toucher(owner)
     shift = (-owner.ctypes.data) % ALIGNMENT + base_offset
     return owner[shift : shift + nbytes]  # the view keeps the larger allocation alive
 
@@ -35,8 +48,8 @@ class State:
 
     # -- construction ---------------------------------------------------------------------
     @classmethod
-    def zeros(cls, layout: Layout | str, extents: Extents, dtype: Any = "float64") -> State:
-        """An all-zero state (padding included) in an aligned buffer."""
+    def zeros(cls, layout: Layout | str, extents: Extents, dtype: Any = "float64", toucher: Toucher | None = None) -> State:
+        """An all-zero state (padding included) in an aligned buffer (see ``aligned_empty``)."""
         layout = as_layout(layout)
         dt = check_dtype(dtype)
         if layout.base_offset % dt.itemsize:
@@ -45,7 +58,7 @@ class State:
                 f"the {dt.name} item size {dt.itemsize}; valid offsets are multiples of {dt.itemsize}"
             )
         shape = layout.shape(extents)
-        raw = aligned_empty(layout.nbytes(extents, dt), layout.base_offset)
+        raw = aligned_empty(layout.nbytes(extents, dt), layout.base_offset, toucher)
         return cls(layout, extents, raw.view(dt).reshape(shape))
 
     @classmethod

@@ -146,3 +146,30 @@ def test_unknown_names_suggest_close_matches() -> None:
 def test_tile_that_does_not_fit_the_grid_is_refused() -> None:
     with pytest.raises(LayoutError, match="axis 'x'"):
         get_kernel("laplacian").make_problem(parse_layout("Y.X.var.z.y2.x4"), GRID)
+
+
+@pytest.mark.parametrize("name", sorted(KERNELS))
+def test_declared_input_shapes_and_footprint(name: str) -> None:
+    kernel = KERNELS[name]
+    logical = kernel.logical_inputs(GRID, np.dtype("float64"), 0)
+    declared = kernel.input_shapes(GRID)
+    assert set(declared) == set(logical)
+    for key, shape in declared.items():
+        expected = shape.shape if isinstance(shape, Extents) else (shape,)
+        assert logical[key].shape == expected, key
+    for spec in ("var.z.y.x", "var.z+1.y.x+8", "Y.X.var.z.y2.x3"):
+        problem = kernel.make_problem(spec, GRID)
+        assert kernel.footprint(spec, GRID, "float64") == problem.nbytes()
+
+
+def test_first_touch_toucher_is_used_and_values_survive() -> None:
+    touched: list[int] = []
+
+    def toucher(raw: np.ndarray) -> None:
+        touched.append(raw.nbytes)
+        raw[...] = 0
+
+    kernel = get_kernel("advection")
+    problem = kernel.make_problem("y.x.z.var", GRID, toucher=toucher)
+    assert len(touched) == 4  # q, u, v and the output
+    assert kernel.validate(problem, "block").ok

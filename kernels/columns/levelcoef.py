@@ -94,6 +94,9 @@ class LevelCoef(Kernel):
     summary = "tridiagonal solve per (variable, column); a, b, c per level only (1-D), d 3-D"
     schedules = (COLUMN, STRIP)
 
+    def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
+        return {"a": extents.z, "b": extents.z, "c": extents.z, "d": extents}
+
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         a, b, c = diffusion_coefficients(interface_diffusivity(extents.z).reshape(1, -1), dt=600.0)
         d = right_hand_side(extents, seed + 1)

@@ -127,6 +127,10 @@ class SharedCoef(Kernel):
     schedules = (COLUMN, STRIP)
     padding_value = {"b": 1.0}
 
+    def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
+        shared = extents.replace(var=1)
+        return {"a": shared, "b": shared, "c": shared, "d": extents}
+
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         rng = np.random.default_rng(seed)
         profile = interface_diffusivity(extents.z).reshape(1, -1, 1, 1)

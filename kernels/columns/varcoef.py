@@ -91,6 +91,9 @@ class VarCoef(Kernel):
     schedules = (COLUMN, STRIP)
     padding_value = {"b": 1.0}  # padded columns solve x = d = 0 instead of dividing by zero
 
+    def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
+        return {k: extents for k in "abcd"}
+
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         rng = np.random.default_rng(seed)
         profile = interface_diffusivity(extents.z).reshape(1, -1, 1, 1)

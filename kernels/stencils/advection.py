@@ -91,6 +91,9 @@ class Advection(Kernel):
     schedules = (BLOCK, CYCLIC)
     halo = 1
 
+    def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
+        return {"q": extents, "u": extents.replace(var=1), "v": extents.replace(var=1)}
+
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         return {
             "q": smooth_field(extents, seed).astype(dtype),

@@ -75,6 +75,9 @@ class Hyperdiffusion(Kernel):
     schedules = (BLOCK, CYCLIC)
     halo = 2
 
+    def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
+        return {"q": extents}
+
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         return {"q": smooth_field(extents, seed).astype(dtype)}
 
