@@ -4,4 +4,5 @@ import sys
 
 from harness.cli import main
 
-sys.exit(main())
+if __name__ == "__main__":  # spawned worker processes import this module without running it
+    sys.exit(main())

@@ -26,7 +26,39 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
     layouts_cmd.add_parser(sub)
+    sweep_p = sub.add_parser(
+        "sweep",
+        help="run a suite: every case validated, then timed; results in a run directory",
+        description="Run a suite (a TOML file, or the built-in 'default' / 'quick') and write a run directory.",
+    )
+    sweep_p.add_argument("suite", nargs="?", default=None, help="suite file or built-in name (default: the built-in default suite)")
+    sweep_p.add_argument("--quick", action="store_true", help="run the tiny built-in smoke suite")
+    sweep_p.add_argument("--out", help="run directory to create (default: results/runs/<time>-<suite>-<machine>)")
+    sweep_p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted run, skipping finished cases")
+    sweep_p.add_argument("--quiet", action="store_true", help="no progress bar (for CI logs)")
+    sweep_p.add_argument("--no-vector-report", action="store_true", help="skip reading the machine code for vectorisation")
+    sweep_p.set_defaults(func=_sweep)
+    roof_p = sub.add_parser("roof", help="measure and print the triad bandwidth curve of this machine")
+    roof_p.add_argument("--threads", default=None, help="thread counts, comma separated (default: 1 and the usable core count)")
+    roof_p.add_argument("--max-bytes", default="1GiB", help="largest triad footprint, e.g. 512MiB, 2GiB")
+    roof_p.add_argument("--format", default="md", choices=("md", "csv", "json"))
+    roof_p.add_argument("--plot", metavar="PNG", help="also plot the curve (needs the 'plot' extra)")
+    roof_p.set_defaults(func=_roof)
     return parser
+
+
+def _sweep(args: argparse.Namespace) -> int:
+    from harness.sweep import run_sweep
+
+    if args.quick and args.suite:
+        raise StridewiseError("give either a suite or --quick, not both")
+    return run_sweep("quick" if args.quick else args.suite, args.out, args.resume, args.quiet, args.no_vector_report)
+
+
+def _roof(args: argparse.Namespace) -> int:
+    from harness.roof_cmd import run_roof
+
+    return run_roof(args)
 
 
 def main(argv: Sequence[str] | None = None) -> int:

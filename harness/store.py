@@ -1,0 +1,123 @@
+"""A run directory: samples and cases as tidy CSV, metadata as JSON, a markdown summary.
+
+Rows are appended and flushed as each group of cases finishes, so an interrupted sweep loses
+nothing finished and ``--resume`` can carry on.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+import warnings
+from pathlib import Path
+from typing import Any
+
+from kernels.errors import StridewiseError
+
+SAMPLES = "samples.csv"
+CASES = "cases.csv"
+METADATA = "metadata.json"
+SUITE = "suite.toml"
+SUMMARY = "summary.md"
+
+SAMPLE_COLUMNS = ["case_id", "kernel", "schedule", "build", "layout", "dtype", "grid", "threads", "round", "position", "phase", "ns"]
+CASE_COLUMNS = [
+    "case_id", "kernel", "family", "schedule", "build", "layout", "dtype", "grid", "threads", "status", "message",
+    "max_rel_error", "tolerance", "footprint_bytes", "traffic_bytes", "flops", "samples", "median_ns", "iqr_ns",
+    "gbps", "roof_gbps", "pct_roof", "gflops", "overhead_ns", "overhead_bound", "harness_overhead_ns",
+    "compile_s", "loaded_from_cache", "vectorised", "vector_bits", "order_seed",
+]
+
+
+class RunStoreError(StridewiseError):
+    """A run directory cannot be created, written or read."""
+
+
+class RunStore:
+    """Append-only writer and reader of one run directory."""
+
+    def __init__(self, path: Path) -> None:
+        self.path = Path(path)
+
+    # -- writing --------------------------------------------------------------------------
+    def create(self, suite_text: str, metadata: dict[str, Any]) -> None:
+        try:
+            self.path.mkdir(parents=True, exist_ok=True)
+            probe = self.path / ".write-test"
+            probe.write_text("")
+            probe.unlink()
+        except OSError as exc:
+            raise RunStoreError(f"results directory '{self.path}' is not writable: {exc.strerror}") from None
+        (self.path / SUITE).write_text(suite_text)
+        self.write_metadata(metadata)
+        for name, columns in ((SAMPLES, SAMPLE_COLUMNS), (CASES, CASE_COLUMNS)):
+            target = self.path / name
+            if not target.exists():
+                with target.open("w", newline="") as fh:
+                    csv.writer(fh).writerow(columns)
+
+    def write_metadata(self, metadata: dict[str, Any]) -> None:
+        tmp = self.path / (METADATA + ".tmp")
+        tmp.write_text(json.dumps(metadata, indent=2, default=str))
+        os.replace(tmp, self.path / METADATA)  # atomic: a reader never sees half a file
+
+    def append(self, cases: list[dict[str, Any]], samples: list[dict[str, Any]]) -> None:
+        """Append one finished group: samples first, then the case rows that mark it finished."""
+        for name, columns, rows in ((SAMPLES, SAMPLE_COLUMNS, samples), (CASES, CASE_COLUMNS, cases)):
+            with (self.path / name).open("a", newline="") as fh:
+                writer = csv.DictWriter(fh, fieldnames=columns, extrasaction="ignore")
+                writer.writerows(rows)
+                fh.flush()
+                os.fsync(fh.fileno())
+
+    def write_summary(self, text: str) -> None:
+        (self.path / SUMMARY).write_text(text)
+
+    # -- reading --------------------------------------------------------------------------
+    def metadata(self) -> dict[str, Any]:
+        try:
+            return json.loads((self.path / METADATA).read_text())
+        except FileNotFoundError:
+            raise RunStoreError(f"'{self.path}' is not a run directory: no {METADATA}") from None
+        except json.JSONDecodeError as exc:
+            raise RunStoreError(f"{self.path / METADATA} is not valid JSON: {exc}") from None
+
+    def suite_text(self) -> str:
+        try:
+            return (self.path / SUITE).read_text()
+        except FileNotFoundError:
+            raise RunStoreError(f"'{self.path}' has no {SUITE}; it was not written by a sweep") from None
+
+    def read_table(self, name: str, columns: list[str]) -> "Any":
+        """Read a CSV of the run as a DataFrame, tolerating a truncated last line (with a warning)."""
+        import pandas as pd
+
+        target = self.path / name
+        if not target.exists():
+            raise RunStoreError(f"'{self.path}' has no {name}; it is not a run directory")
+        text = target.read_text()
+        if not text.strip():
+            raise RunStoreError(f"{target} is empty; expected a header with columns {', '.join(columns[:4])}, ...")
+        lines = text.splitlines(keepends=True)
+        header = next(csv.reader([lines[0]]))
+        missing = [c for c in columns if c not in header]
+        if missing:
+            raise RunStoreError(f"{target} is not a stridewise {name}: missing columns {', '.join(missing)}")
+        if not text.endswith("\n") and len(lines) > 1:
+            warnings.warn(f"{target}: last line is incomplete (interrupted write); it was ignored", stacklevel=2)
+            lines = lines[:-1]
+        frame = pd.read_csv(io.StringIO("".join(lines)), keep_default_na=False, na_values=[""])
+        return frame
+
+    def cases(self) -> "Any":
+        return self.read_table(CASES, CASE_COLUMNS)
+
+    def samples(self) -> "Any":
+        return self.read_table(SAMPLES, SAMPLE_COLUMNS)
+
+    def finished_case_ids(self) -> set[str]:
+        if not (self.path / CASES).exists():
+            return set()
+        return set(self.cases()["case_id"].astype(str))

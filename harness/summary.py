@@ -1,0 +1,105 @@
+"""The markdown summary a sweep writes at its end: per group, layouts ranked by median time."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from tabulate import tabulate
+
+#: A case whose median is below this multiple of the empty kernel's time (dispatch plus fork/join)
+#: is flagged overhead-bound: its time says more about the call than about the layout.
+OVERHEAD_MULTIPLE = 10.0
+
+
+def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, harness_overhead_ns: float) -> dict[str, Any]:
+    """Median, IQR, bandwidth, percent of roof and GFLOP/s of one case from its measured samples."""
+    out = dict(record)
+    out["samples"] = len(ns)
+    out["harness_overhead_ns"] = harness_overhead_ns
+    if not ns:
+        return out
+    arr = np.asarray(ns, dtype=float)
+    median = float(np.median(arr))
+    q75, q25 = np.percentile(arr, [75, 25])
+    out["median_ns"] = median
+    out["iqr_ns"] = float(q75 - q25)
+    out["gbps"] = record["traffic_bytes"] / median if median else None  # bytes/ns = GB/s
+    out["gflops"] = record["flops"] / median if median else None
+    if roof is not None:
+        roof_gbps = roof.at(record["footprint_bytes"]) / 1e9
+        out["roof_gbps"] = roof_gbps
+        out["pct_roof"] = 100.0 * out["gbps"] / roof_gbps if roof_gbps else None
+    if record.get("overhead_ns"):
+        out["overhead_bound"] = bool(median < OVERHEAD_MULTIPLE * record["overhead_ns"])
+    return out
+
+
+def _fmt(value: Any, spec: str) -> str:
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return ""
+    return format(value, spec)
+
+
+def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
+    """Markdown: a compact machine header, per group a ranked table, then failures."""
+    fp = metadata.get("fingerprint", {})
+    suite = metadata.get("suite", {})
+    lines = [
+        f"# Sweep `{suite.get('name', '?')}`: {metadata.get('status', '?')}",
+        "",
+        f"Machine `{fp.get('machine_id', '?')}`: {fp.get('cpu_model', '?')}, {fp.get('usable_cores', '?')} usable cores, "
+        f"numba {fp.get('numba', '?')} ({fp.get('numba_target', {}).get('cpu_name', '?')}), "
+        f"commit `{fp.get('commit') or 'unknown'}`, kernels source `{fp.get('kernels_source_hash', '?')}`.",
+    ]
+    comp = metadata.get("compile", {})
+    if comp:
+        lines.append(
+            f"Compiled {comp.get('compiled', 0)} specialisations in {comp.get('compile_seconds', 0):.1f} s; "
+            f"loaded {comp.get('loaded', 0)} from cache in {comp.get('load_seconds', 0):.1f} s."
+        )
+    for threads, info in sorted(metadata.get("workers", {}).items(), key=lambda kv: int(kv[0])):
+        roof = info.get("roof", {}).get("memory_roof_bytes_per_s")
+        roof_text = f", memory roof {roof / 1e9:.1f} GB/s" if roof else ""
+        lines.append(f"- {threads} thread(s): threading layer `{info.get('threading_layer')}`{roof_text}")
+    lines.append("")
+    ok = cases[cases["status"] == "ok"] if len(cases) else cases
+    for (kernel, grid, dtype, threads), grp in ok.groupby(["kernel", "grid", "dtype", "threads"], sort=False):
+        grp = grp.sort_values("median_ns")
+        slowest = grp["median_ns"].max()
+        best = grp.iloc[0]
+        worst = grp.iloc[-1]
+        lines.append(f"## {kernel}, {grid}, {dtype}, {threads} thread(s)")
+        lines.append("")
+        if len(grp) > 1:
+            lines.append(
+                f"`{best['layout']}` ({best['schedule']}, {best['build']}) is {worst['median_ns'] / best['median_ns']:.1f}x "
+                f"faster than `{worst['layout']}` ({worst['schedule']}, {worst['build']})."
+            )
+            lines.append("")
+        rows = []
+        for _, r in grp.iterrows():
+            flags = []
+            if r.get("overhead_bound") is True or r.get("overhead_bound") == "True":
+                flags.append("overhead-bound")
+            if r.get("vectorised") in (False, "False"):
+                flags.append("scalar")
+            rows.append(
+                [
+                    r["layout"], r["schedule"], r["build"], _fmt(r["median_ns"] / 1e6, ".3f"),
+                    _fmt(r["iqr_ns"] / r["median_ns"], ".1%"), _fmt(r.get("gbps"), ".1f"), _fmt(r.get("pct_roof"), ".0f"),
+                    _fmt(r.get("gflops"), ".2f"), _fmt(slowest / r["median_ns"], ".2f"), " ".join(flags),
+                ]
+            )
+        headers = ["layout", "schedule", "build", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "x slowest", "flags"]
+        lines.append(tabulate(rows, headers=headers, tablefmt="github", disable_numparse=True))
+        lines.append("")
+    bad = cases[cases["status"] != "ok"] if len(cases) else cases
+    if len(bad):
+        lines.append("## Failed cases")
+        lines.append("")
+        rows = [[r["kernel"], r["schedule"], r["build"], r["layout"], r["dtype"], r["threads"], r["status"], r["message"]] for _, r in bad.iterrows()]
+        lines.append(tabulate(rows, headers=["kernel", "schedule", "build", "layout", "dtype", "threads", "status", "message"], tablefmt="github"))
+        lines.append("")
+    return "\n".join(lines)

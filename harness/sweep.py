@@ -1,0 +1,299 @@
+"""``stridewise sweep``: run a suite's cases in per-thread-count worker processes and record them."""
+
+from __future__ import annotations
+
+import multiprocessing
+import os
+import queue as queue_module
+import signal
+import sys
+import time
+from collections import defaultdict
+from contextlib import contextmanager
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, Iterator
+
+from harness import machine
+from harness.plan import Group, group_bytes, plan
+from harness.roof import RoofCurve
+from harness.store import RunStore, RunStoreError
+from harness.suite import Suite, SuiteError, load_suite, parse_suite
+from harness.summary import case_statistics, render_summary
+from harness.worker import WorkerPlan, worker_environment, worker_main
+
+EXIT_INTERRUPTED = {signal.SIGINT: 130, signal.SIGTERM: 143}
+FAILED_BASE = 10  # exit status 10 + N when N cases failed validation or raised (N capped at 100)
+MEMORY_SHARE = 0.8  # a group may use at most this share of the memory available at start
+
+
+@contextmanager
+def _environment(extra: dict[str, str]) -> Iterator[None]:
+    saved = {k: os.environ.get(k) for k in extra}
+    os.environ.update(extra)
+    try:
+        yield
+    finally:
+        for key, value in saved.items():
+            if value is None:
+                os.environ.pop(key, None)
+            else:
+                os.environ[key] = value
+
+
+class _Stop:
+    """Turns SIGINT/SIGTERM into a request to stop after the current sample."""
+
+    def __init__(self, event: Any) -> None:
+        self.event = event
+        self.signal: int | None = None
+
+    def __call__(self, signum: int, frame: Any) -> None:
+        self.signal = signum
+        self.event.set()
+
+    @contextmanager
+    def installed(self) -> Iterator[None]:
+        old = {s: signal.signal(s, self) for s in (signal.SIGINT, signal.SIGTERM)}
+        try:
+            yield
+        finally:
+            for s, handler in old.items():
+                signal.signal(s, handler)
+
+
+def default_run_dir(suite: Suite, fingerprint: dict[str, Any]) -> Path:
+    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    return Path("results") / "runs" / f"{stamp}-{suite.name}-{fingerprint['machine_id']}"
+
+
+def check_memory(groups: list[Group], suite: Suite) -> None:
+    """Refuse groups whose resident buffers would not fit in the memory available now."""
+    available = machine.available_memory_bytes()
+    if not available:
+        return
+    flush = suite.timing.flush_bytes if suite.timing.cold_cache else 0
+    for group in groups:
+        need = group_bytes(group) + flush
+        if need > MEMORY_SHARE * available:
+            raise SuiteError(
+                f"group '{group.label}' needs {need / 2**30:.1f} GiB resident (all its layouts at once), "
+                f"more than {MEMORY_SHARE:.0%} of the {available / 2**30:.1f} GiB available; use fewer layouts or a smaller grid"
+            )
+
+
+def run_sweep(
+    suite_arg: str | None,
+    out: str | None = None,
+    resume: str | None = None,
+    quiet: bool = False,
+    no_vector_report: bool = False,
+) -> int:
+    """Run (or resume) a sweep; returns the exit status."""
+    fingerprint = machine.fingerprint()
+    if resume:
+        store = RunStore(Path(resume))
+        old = store.metadata()
+        suite_text = store.suite_text()
+        suite = parse_suite(__import__("tomllib").loads(suite_text), old.get("suite", {}).get("name", "resumed"))
+        if suite_arg is not None:
+            given = load_suite(suite_arg)
+            if given.digest() != suite.digest():
+                raise SuiteError(
+                    f"--resume {resume}: the run was made with suite '{suite.name}' ({suite.digest()}), "
+                    f"not the given '{given.name}' ({given.digest()}); resume without a suite or start a new run"
+                )
+        if old.get("fingerprint", {}).get("machine_id") != fingerprint["machine_id"]:
+            print(f"stridewise: warning: resuming on machine {fingerprint['machine_id']}, the run began on "
+                  f"{old.get('fingerprint', {}).get('machine_id')}", file=sys.stderr)
+        metadata = old
+    else:
+        suite = load_suite(suite_arg)
+        suite_text = _suite_text(suite_arg)
+        store = RunStore(Path(out) if out else default_run_dir(suite, fingerprint))
+        if (store.path / "cases.csv").exists():
+            raise RunStoreError(f"'{store.path}' already holds a run; use --resume {store.path} or another --out")
+        metadata = {}
+    usable = machine.usable_cores()
+    counts = suite.thread_counts(usable)
+    for count in counts:
+        if count > usable:
+            print(f"stridewise: warning: {count} threads exceed the {usable} usable cores; the worker's thread cap is "
+                  f"raised to {count}, and its threads will share cores", file=sys.stderr)
+    groups = plan(suite, counts)
+    check_memory(groups, suite)
+    gov = machine.governor_warning(fingerprint["cpufreq"])
+    if gov:
+        print(f"stridewise: warning: {gov}", file=sys.stderr)
+    done = store.finished_case_ids() if resume else set()
+    todo = [g for g in groups if not all(c.id in done for c in g.cases)]
+    if not metadata:
+        metadata = {
+            "suite": suite.as_dict(),
+            "suite_hash": suite.digest(),
+            "fingerprint": fingerprint,
+            "started": _now(),
+            "status": "running",
+            "workers": {},
+            "groups": {},
+            "compiles": [],
+            "timing_policy": {"order": "seeded shuffle per round", "clock": "time.perf_counter_ns"},
+            "jit": {"error_model": "numpy", "fastmath": False, "cache_dir": _cache_dir()},
+        }
+        store.create(suite_text, metadata)
+    else:
+        metadata["status"] = "running"
+        metadata.setdefault("resumed", []).append(_now())
+        store.write_metadata(metadata)
+    total_cases = sum(len(g.cases) for g in todo)
+    if not quiet:
+        print(f"stridewise: {len(todo)} groups, {total_cases} cases, threads {list(counts)} -> {store.path}", file=sys.stderr)
+    ctx = multiprocessing.get_context("spawn")
+    stop_event = ctx.Event()
+    stopper = _Stop(stop_event)
+    progress = _progress(total_cases, quiet)
+    crashed = []
+    with stopper.installed():
+        for threads in counts:
+            mine = tuple(g for g in todo if g.threads == threads)
+            if not mine or stop_event.is_set():
+                continue
+            flush_bytes = suite.timing.flush_bytes or 2 * (machine.last_level_cache_bytes() or 64 << 20)
+            wplan = WorkerPlan(
+                threads=threads,
+                groups=mine,
+                timing=suite.timing,
+                seed=suite.seed,
+                pin=suite.threads.pin,
+                kernel_options=suite.kernel_options,
+                inspect_vectorisation=not no_vector_report,
+                flush_bytes=flush_bytes,
+            )
+            q = ctx.Queue()
+            proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event), daemon=True)
+            with _environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
+                proc.start()
+            crash = _drain(q, proc, store, metadata, progress)
+            proc.join()
+            if crash:
+                crashed.append(crash)
+                break
+    progress.close()
+    metadata["ended"] = _now()
+    interrupted = stopper.signal is not None
+    metadata["status"] = "interrupted" if interrupted else ("crashed" if crashed else "complete")
+    _compile_totals(metadata)
+    store.write_metadata(metadata)
+    cases = store.cases()
+    store.write_summary(render_summary(cases, metadata))
+    failed = int((cases["status"] != "ok").sum()) if len(cases) else 0
+    if not quiet or failed or interrupted:
+        print(f"stridewise: {metadata['status']}: {len(cases)} cases recorded, {failed} failed; summary in {store.path / 'summary.md'}",
+              file=sys.stderr)
+    for text in crashed:
+        print(f"stridewise: worker crashed:\n{text}", file=sys.stderr)
+    if interrupted:
+        return EXIT_INTERRUPTED.get(stopper.signal, 130)
+    if crashed:
+        return 1
+    return FAILED_BASE + min(failed, 100) if failed else 0
+
+
+def _drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progress: Any) -> str | None:
+    """Receive one worker's messages until it exits; write each finished group at once."""
+    threads = str(None)
+    crash = None
+    current = ""
+    while True:
+        try:
+            kind, payload = q.get(timeout=0.5)
+        except queue_module.Empty:
+            if not proc.is_alive():
+                return crash or f"worker exited with status {proc.exitcode} without reporting"
+            continue
+        if kind == "worker":
+            threads = str(payload["threads"])
+            metadata["workers"][threads] = payload
+            store.write_metadata(metadata)
+        elif kind == "roof":
+            metadata["workers"][threads]["roof"] = payload
+            store.write_metadata(metadata)
+        elif kind == "start":
+            current = payload
+            progress.set_postfix_str(current)
+        elif kind == "round":
+            progress.set_postfix_str(f"{current} round {payload}")
+        elif kind == "group":
+            _record_group(payload, store, metadata)
+            progress.update(len(payload["records"]))
+        elif kind == "interrupted":
+            metadata["groups"][payload] = {"status": "interrupted: not recorded, rerun by --resume"}
+        elif kind == "crash":
+            crash = payload
+        elif kind == "exit":
+            return crash
+
+
+def _record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, Any]) -> None:
+    worker = metadata["workers"].get(str(result["threads"]), {})
+    roof = RoofCurve.from_dict(worker["roof"]) if "roof" in worker else None
+    by_case: dict[str, list[int]] = defaultdict(list)
+    keys = {r["case_id"]: r for r in result["records"]}
+    samples = []
+    for case_id, rnd, pos, phase, ns in result["samples"]:
+        if phase == "measure":
+            by_case[case_id].append(ns)
+        rec = keys[case_id]
+        samples.append({**{k: rec[k] for k in ("case_id", "kernel", "schedule", "build", "layout", "dtype", "grid", "threads")},
+                        "round": rnd, "position": pos, "phase": phase, "ns": ns})
+    cases = []
+    for rec in result["records"]:
+        row = case_statistics(rec, by_case.get(rec["case_id"], []), roof, result["harness_overhead_ns"])
+        row["order_seed"] = result["order_seed"]
+        cases.append(row)
+    store.append(cases, samples)
+    metadata["groups"][result["group"]] = {
+        "rounds": result["rounds"],
+        "harness_overhead_ns": result["harness_overhead_ns"],
+        "flush_ns": result["flush_ns"],
+        "order_seed": result["order_seed"],
+    }
+    metadata["compiles"].extend(result["compiles"])
+    store.write_metadata(metadata)
+
+
+def _compile_totals(metadata: dict[str, Any]) -> None:
+    recs = metadata.get("compiles", [])
+    metadata["compile"] = {
+        "compiled": sum(1 for r in recs if not r["from_cache"]),
+        "compile_seconds": sum(r["seconds"] for r in recs if not r["from_cache"]),
+        "loaded": sum(1 for r in recs if r["from_cache"]),
+        "load_seconds": sum(r["seconds"] for r in recs if r["from_cache"]),
+    }
+
+
+def _progress(total: int, quiet: bool) -> Any:
+    from tqdm import tqdm
+
+    return tqdm(total=total, unit="case", disable=quiet, dynamic_ncols=True, file=sys.stderr)
+
+
+def _suite_text(suite_arg: str | None) -> str:
+    from importlib import resources
+
+    from harness.suite import BUILTIN_SUITES
+
+    name = suite_arg or "default"
+    if name in BUILTIN_SUITES and not Path(name).exists():
+        return resources.files("harness").joinpath(f"suites/{name}.toml").read_text()
+    return Path(name).read_text()
+
+
+def _cache_dir() -> str:
+    from kernels.jit import cache_dir
+
+    return cache_dir()
+
+
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")

@@ -1,0 +1,93 @@
+"""Interleaved sampling: every case of a group once per round, in a seeded shuffled order."""
+
+from __future__ import annotations
+
+import random
+import statistics
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from harness.suite import Timing
+
+
+class Interrupted(Exception):
+    """The stop signal arrived; the group's samples are incomplete."""
+
+
+@dataclass
+class GroupSamples:
+    """Samples of one group: (case_id, round, position, phase, ns) rows, plus what the rounds cost."""
+
+    rows: list[tuple[str, int, int, str, int]] = field(default_factory=list)
+    rounds: int = 0
+    harness_overhead_ns: float = 0.0  # median per-sample time spent outside the kernel call
+    flush_ns: float = 0.0  # median per-sample cold-cache eviction time (0 when off)
+
+
+def _measure(call: Callable[[], Any]) -> int:
+    start = time.perf_counter_ns()
+    call()
+    return time.perf_counter_ns() - start
+
+
+def sample_rounds(
+    calls: dict[str, Callable[[], Any]],
+    timing: Timing,
+    rng: random.Random,
+    should_stop: Callable[[], bool],
+    before_sample: Callable[[], Any] | None = None,
+    on_round: Callable[[int], None] | None = None,
+) -> GroupSamples:
+    """Warm-up rounds, then measured rounds until every case has ``min_repeats`` samples and at
+    least ``min_seconds`` of measured time (or ``max_rounds``). Raises Interrupted on stop."""
+    out = GroupSamples()
+    ids = list(calls)
+    if not ids:
+        return out
+    spent = dict.fromkeys(ids, 0)
+    overheads: list[float] = []
+    flushes: list[int] = []
+    total_rounds = 0
+    measured = 0
+    while True:
+        phase = "warmup" if total_rounds < timing.warmup else "measure"
+        rng.shuffle(ids)
+        round_start = time.perf_counter_ns()
+        kernel_ns = 0
+        flush_ns = 0
+        for position, case_id in enumerate(ids):
+            if before_sample is not None:
+                f0 = time.perf_counter_ns()
+                before_sample()
+                flush_ns += time.perf_counter_ns() - f0
+            ns = _measure(calls[case_id])
+            kernel_ns += ns
+            out.rows.append((case_id, total_rounds, position, phase, ns))
+            if phase == "measure":
+                spent[case_id] += ns
+            if should_stop():
+                raise Interrupted
+        round_ns = time.perf_counter_ns() - round_start
+        overheads.append((round_ns - kernel_ns - flush_ns) / len(ids))
+        if before_sample is not None:
+            flushes.append(flush_ns // len(ids))
+        total_rounds += 1
+        if phase == "measure":
+            measured += 1
+        if on_round is not None:
+            on_round(total_rounds)
+        enough = measured >= timing.min_repeats and min(spent.values()) >= timing.min_seconds * 1e9
+        if enough or measured >= max(timing.max_rounds, timing.min_repeats):
+            break
+    out.rounds = measured
+    out.harness_overhead_ns = statistics.median(overheads)
+    out.flush_ns = statistics.median(flushes) if flushes else 0.0
+    return out
+
+
+def overhead_ns(call: Callable[[], Any], repeats: int = 51) -> float:
+    """Median time of an (empty) call: dispatch plus fork/join of the thread pool."""
+    call()
+    return float(statistics.median(_measure(call) for _ in range(repeats)))

@@ -1,0 +1,259 @@
+"""The worker: one spawned process per thread setting, which validates and times its groups.
+
+numba fixes its thread pool (size, threading layer, placement) when the pool starts, so each
+thread setting gets a fresh interpreter whose environment the parent set before spawning it.
+The worker only measures; the parent writes every result.
+"""
+
+from __future__ import annotations
+
+import os
+import random
+import signal
+import time
+import traceback
+from dataclasses import dataclass
+from typing import Any
+
+from harness.plan import ARROW, CONVERT, Group
+from harness.suite import Timing
+
+
+@dataclass(frozen=True)
+class WorkerPlan:
+    threads: int
+    groups: tuple[Group, ...]
+    timing: Timing
+    seed: int
+    pin: bool
+    kernel_options: tuple[tuple[str, tuple[tuple[str, int], ...]], ...]
+    inspect_vectorisation: bool
+    flush_bytes: int
+
+
+def worker_environment(threads: int, layer: str, pin: bool) -> dict[str, str]:
+    """Environment a worker must start with (numba reads it once, at import)."""
+    env = {"NUMBA_NUM_THREADS": str(threads)}
+    if layer != "default":
+        env["NUMBA_THREADING_LAYER"] = layer
+    if pin:
+        env["OMP_PLACES"] = "cores"
+        env["OMP_PROC_BIND"] = "close"
+    return env
+
+
+def worker_main(plan: WorkerPlan, queue: Any, stop: Any) -> None:
+    """Entry point of the spawned process."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides when to stop, via ``stop``
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    try:
+        _run(plan, queue, stop)
+    except BaseException:  # noqa: BLE001 - reported to the parent, which records it
+        queue.put(("crash", traceback.format_exc()))
+    finally:
+        queue.put(("exit", None))
+
+
+def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
+    import numba
+    import numpy as np
+    from threadpoolctl import threadpool_info, threadpool_limits
+
+    from harness.roof import measure_curve
+    from kernels.parallel import FILL, evict_caches
+
+    threadpool_limits(limits=1, user_api="blas")  # other libraries' pools cannot oversubscribe
+    numba.set_num_threads(plan.threads)
+    affinity = sorted(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else None
+    if plan.pin and affinity and os.environ.get("NUMBA_THREADING_LAYER") != "omp":
+        os.sched_setaffinity(0, affinity[: plan.threads])
+        affinity = sorted(os.sched_getaffinity(0))
+    FILL.parallel(np.zeros(64, np.uint8), np.uint8(0), plan.threads)  # starts the pool
+    queue.put(
+        (
+            "worker",
+            {
+                "threads": plan.threads,
+                "pid": os.getpid(),
+                "threading_layer": numba.threading_layer(),
+                "numba_num_threads": numba.config.NUMBA_NUM_THREADS,
+                "affinity": affinity,
+                "pinned": plan.pin,
+                "other_pools": [
+                    {k: p.get(k) for k in ("user_api", "internal_api", "num_threads")} for p in threadpool_info()
+                ],
+            },
+        )
+    )
+    if plan.timing.roof:
+        queue.put(("roof", measure_curve(plan.threads, plan.timing.roof_max_bytes).as_dict()))
+    flush = None
+    if plan.timing.cold_cache:
+        flush_buf = np.zeros(plan.flush_bytes // 8, dtype=np.int64)
+
+        def flush() -> None:
+            evict_caches(flush_buf)
+
+    seen_reports: dict[str, dict[str, Any]] = {}
+    for group in plan.groups:
+        if stop.is_set():
+            break
+        queue.put(("start", group.label))
+        try:
+            result = _run_group(group, plan, stop, flush, seen_reports, queue)
+        except _Stopped:
+            queue.put(("interrupted", group.label))
+            break
+        queue.put(("group", result))
+
+
+class _Stopped(Exception):
+    pass
+
+
+def _schedule(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:
+    from kernels.base import Schedule
+
+    schedule = kernel.schedule(name)
+    if kernel.name in options and schedule.params:
+        given = dict(options[kernel.name])
+        params = tuple((k, given.get(k, v)) for k, v in schedule.params)
+        schedule = Schedule(schedule.name, schedule.summary, params)
+    return schedule
+
+
+def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, queue: Any) -> dict[str, Any]:
+    import numpy as np
+
+    from harness.timing import Interrupted, overhead_ns, sample_rounds
+    from kernels.base import Bound
+    from kernels.grid import Extents
+    from kernels.jit import ensure_compiled, vector_report
+    from kernels.parallel import first_touch
+    from kernels.registry import get_kernel
+
+    extents = Extents.parse(group.grid)
+    toucher = first_touch if plan.timing.first_touch else None
+    records: dict[str, dict[str, Any]] = {}
+    calls: dict[str, Bound] = {}
+    compiles: list[dict[str, Any]] = []
+    options = dict(plan.kernel_options)
+
+    def compile_for(dispatcher: Any, args: tuple) -> dict[str, Any] | None:
+        rec = ensure_compiled(dispatcher, args)
+        if rec is not None:
+            compiles.append({"name": rec.name, "signature": rec.signature, "seconds": rec.seconds, "from_cache": rec.from_cache})
+        return None if rec is None else {"seconds": rec.seconds, "from_cache": rec.from_cache}
+
+    if group.kernel == CONVERT:
+        from kernels.convert import conversion_args
+        from kernels.state import State
+
+        itemsize = np.dtype(group.dtype).itemsize
+        logical = np.random.default_rng(plan.seed).standard_normal(extents.shape).astype(group.dtype)
+        for case in group.cases:
+            rec = _base_record(case, "conversion", 0, 2 * extents.points * itemsize, 0)
+            records[case.id] = rec
+            try:
+                src_spec, dst_spec = case.layout.split(ARROW)
+                src = State.zeros(src_spec, extents, group.dtype, toucher)
+                src.assign_logical(logical)
+                dst = State.zeros(dst_spec, extents, group.dtype, toucher)
+                rec["footprint_bytes"] = src.data.nbytes + dst.data.nbytes
+                impl, args = conversion_args(src, dst)
+                dispatcher = getattr(impl, case.build)
+                info = compile_for(dispatcher, args)
+                rec.update(_compile_fields(info))
+                dispatcher(*args)
+                if not np.array_equal(dst.to_logical(), logical):
+                    rec.update(status="failed", message="conversion is not bit-exact")
+                    continue
+                rec.update(status="ok", max_rel_error=0.0, tolerance=0.0)
+                compile_for(impl.empty, args)
+                rec["overhead_ns"] = overhead_ns(lambda: impl.empty(*args))
+                calls[case.id] = Bound(dispatcher, args)
+            except Exception as exc:  # noqa: BLE001 - recorded as the case's error
+                rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
+    else:
+        kernel = get_kernel(group.kernel)
+        problems: dict[str, Any] = {}
+        for case in group.cases:
+            traffic = kernel.traffic_bytes(extents, group.dtype)
+            rec = _base_record(case, kernel.family, kernel.footprint(case.layout, extents, group.dtype), traffic, kernel.flops(extents))
+            records[case.id] = rec
+            try:
+                if case.layout not in problems:
+                    problems[case.layout] = kernel.make_problem(case.layout, extents, group.dtype, plan.seed, toucher)
+                problem = problems[case.layout]
+                schedule = _schedule(kernel, case.schedule, options)
+                impl, args = kernel.implementation(problem, schedule)
+                dispatcher = getattr(impl, case.build)
+                rec.update(_compile_fields(compile_for(dispatcher, args)))
+                check = kernel.validate(problem, schedule, case.build)
+                rec.update(max_rel_error=check.max_rel_error, tolerance=check.tolerance)
+                if not check.ok:
+                    rec.update(status="failed", message=check.message)
+                    continue
+                compile_for(impl.empty, args)
+                rec["overhead_ns"] = overhead_ns(lambda impl=impl, args=args: impl.empty(*args))
+                if plan.inspect_vectorisation:
+                    import numba
+
+                    key = impl.name + str(tuple(numba.typeof(a) for a in args))
+                    if key not in seen_reports:
+                        seen_reports[key] = vector_report(impl, args, parallel=False)
+                    rec.update({k: seen_reports[key][k] for k in ("vectorised", "vector_bits")})
+                rec["status"] = "ok"
+                calls[case.id] = Bound(dispatcher, args)
+            except Exception as exc:  # noqa: BLE001 - recorded as the case's error
+                rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
+    seed = f"{plan.seed}:{group.label}"
+    try:
+        sampled = sample_rounds(
+            dict(calls),
+            plan.timing,
+            random.Random(seed),
+            stop.is_set,
+            before_sample=flush,
+            on_round=lambda r: queue.put(("round", r)),
+        )
+    except Interrupted:
+        raise _Stopped from None
+    return {
+        "group": group.label,
+        "threads": group.threads,
+        "records": list(records.values()),
+        "samples": sampled.rows,
+        "rounds": sampled.rounds,
+        "harness_overhead_ns": sampled.harness_overhead_ns,
+        "flush_ns": sampled.flush_ns,
+        "order_seed": seed,
+        "compiles": compiles,
+        "finished": time.time(),
+    }
+
+
+def _base_record(case: Any, family: str, footprint: int, traffic: int, flops: int) -> dict[str, Any]:
+    rec = case.as_dict()
+    rec.update(
+        family=family,
+        status="pending",
+        message="",
+        max_rel_error=None,
+        tolerance=None,
+        footprint_bytes=footprint,
+        traffic_bytes=traffic,
+        flops=flops,
+        overhead_ns=None,
+        compile_s=None,
+        loaded_from_cache=None,
+        vectorised=None,
+        vector_bits=None,
+    )
+    return rec
+
+
+def _compile_fields(info: dict[str, Any] | None) -> dict[str, Any]:
+    if info is None:
+        return {}
+    return {"compile_s": info["seconds"], "loaded_from_cache": info["from_cache"]}
