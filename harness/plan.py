@@ -101,6 +101,6 @@ def group_bytes(group: Group) -> int:
         return total + 8 * extents.points
     kernel = registry[group.kernel]
     layouts = sorted({c.layout for c in group.cases})
-    resident = sum(kernel.footprint(layout, extents, group.dtype) for layout in layouts)
+    sizes = [kernel.footprint(layout, extents, group.dtype) for layout in layouts]
     logical = kernel.footprint("var.z.y.x", extents, "float64")
-    return resident + 2 * logical
+    return sum(sizes) + 2 * logical + 3 * max(sizes)  # + up to three triad probes

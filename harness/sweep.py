@@ -246,15 +246,22 @@ def _record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, A
         rec = keys[case_id]
         samples.append({**{k: rec[k] for k in ("case_id", "kernel", "schedule", "build", "layout", "dtype", "grid", "threads")},
                         "round": rnd, "position": pos, "phase": phase, "ns": ns})
+    probes = []  # (footprint, bytes/s) of the group's own triad probes
+    for rec in result["records"]:
+        ns = by_case.get(rec["case_id"], [])
+        if rec["kernel"] == "triad" and ns:
+            probes.append((rec["footprint_bytes"], rec["traffic_bytes"] / (sorted(ns)[len(ns) // 2] * 1e-9)))
+    probe_curve = RoofCurve(result["threads"], *map(tuple, zip(*sorted(probes)))) if probes else roof
     cases = []
     for rec in result["records"]:
-        row = case_statistics(rec, by_case.get(rec["case_id"], []), roof, result["harness_overhead_ns"])
+        row = case_statistics(rec, by_case.get(rec["case_id"], []), probe_curve, result["harness_overhead_ns"])
         row["order_seed"] = result["order_seed"]
         cases.append(row)
     store.append(cases, samples)
     metadata["groups"][result["group"]] = {
         "rounds": result["rounds"],
         "harness_overhead_ns": result["harness_overhead_ns"],
+        "timer_overhead_ns": result["timer_overhead_ns"],
         "flush_ns": result["flush_ns"],
         "order_seed": result["order_seed"],
     }

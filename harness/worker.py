@@ -207,6 +207,7 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
                 calls[case.id] = Bound(dispatcher, args)
             except Exception as exc:  # noqa: BLE001 - recorded as the case's error
                 rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
+    _add_roof_probes(group, records, calls)
     seed = f"{plan.seed}:{group.label}"
     try:
         sampled = sample_rounds(
@@ -226,11 +227,46 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
         "samples": sampled.rows,
         "rounds": sampled.rounds,
         "harness_overhead_ns": sampled.harness_overhead_ns,
+        "timer_overhead_ns": overhead_ns(_noop, repeats=1001),
         "flush_ns": sampled.flush_ns,
         "order_seed": seed,
         "compiles": compiles,
         "finished": time.time(),
     }
+
+
+#: At most this many triad probes per group (distinct footprints beyond it share the nearest).
+MAX_PROBES = 3
+
+
+def _noop() -> None:
+    return None
+
+
+def _add_roof_probes(group: Group, records: dict[str, dict[str, Any]], calls: dict[str, Any]) -> None:
+    """Add STREAM-triad cases sized like the group's footprints to the group's own rounds.
+
+    Timed interleaved with the kernels, a probe sees the same cache and machine state they do,
+    so a case's percent of roof compares like with like.
+    """
+    import numpy as np
+
+    from harness.plan import CaseKey
+    from kernels.parallel import thread_count
+    from kernels.triad import TRIAD, triad_arrays, triad_bytes
+
+    sizes = sorted({r["footprint_bytes"] for r in records.values() if r["status"] == "ok" and r["footprint_bytes"]})
+    if len(sizes) > MAX_PROBES:
+        sizes = [sizes[round(i * (len(sizes) - 1) / (MAX_PROBES - 1))] for i in range(MAX_PROBES)]
+    for size in sizes:
+        a, b, c = triad_arrays(size, group.dtype)
+        key = CaseKey("triad", "stream", "parallel", f"{a.nbytes * 3}B", group.dtype, group.grid, group.threads)
+        rec = _base_record(key, "roof", 3 * a.nbytes, triad_bytes(a.shape[0], a.itemsize), 2 * a.shape[0])
+        rec.update(status="ok", message="roof probe")
+        records[key.id] = rec
+        nchunks = thread_count()
+        scalar = np.dtype(group.dtype).type(3)
+        calls[key.id] = lambda a=a, b=b, c=c: TRIAD.parallel(a, b, c, scalar, nchunks)
 
 
 def _base_record(case: Any, family: str, footprint: int, traffic: int, flops: int) -> dict[str, Any]:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import difflib
+import os
 import importlib
 import pkgutil
 from typing import TYPE_CHECKING
@@ -29,7 +30,16 @@ def unregister(name: str) -> None:
     _REGISTRY.pop(name, None)
 
 
+#: Environment variable naming extra kernel modules (comma separated) to import and register.
+EXTRA_MODULES_ENV = "STRIDEWISE_KERNEL_MODULES"
+
+
 def _load_all() -> None:
+    for module in filter(None, (m.strip() for m in os.environ.get(EXTRA_MODULES_ENV, "").split(","))):
+        try:
+            importlib.import_module(module)
+        except ImportError as exc:
+            raise KernelError(f"{EXTRA_MODULES_ENV} names module '{module}', which cannot be imported: {exc}") from None
     for package_name in _FAMILY_PACKAGES:
         package = importlib.import_module(package_name)
         for info in pkgutil.iter_modules(package.__path__):

@@ -1,0 +1,59 @@
+"""Test-only kernel registrations (imported through STRIDEWISE_KERNEL_MODULES in a worker).
+
+``broken``: the Laplacian with one correct schedule and one deliberately wrong one.
+``slowed``: the Laplacian whose ``block`` schedule does its work three times (the gate's knob).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from kernels.base import Problem, Schedule
+from kernels.jit import Compiled
+from kernels.registry import register
+from kernels.stencils.laplacian import BLOCK, Laplacian
+
+WRONG = Schedule("wrong", "the block schedule with its scale doubled: a wrong answer")
+
+
+class Broken(Laplacian):
+    name = "broken"
+    schedules = (BLOCK, WRONG)
+
+    def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
+        impl, args = super().implementation(problem, BLOCK)
+        if schedule.name == "wrong":
+            args = args[:10] + (args[10] * 2,) + args[11:]  # the 1/h^2 factor
+        return impl, args
+
+
+class _Repeated:
+    """Calls a compiled build several times: deliberately extra work, same answer."""
+
+    def __init__(self, dispatcher: Any, times: int) -> None:
+        self.dispatcher, self.times = dispatcher, times
+        self.py_func = dispatcher.py_func
+        self.overloads = dispatcher.overloads
+        self.stats = dispatcher.stats
+
+    def compile(self, sig: Any) -> Any:
+        return self.dispatcher.compile(sig)
+
+    def __call__(self, *args: Any) -> Any:
+        for _ in range(self.times):
+            result = self.dispatcher(*args)
+        return result
+
+
+class Slowed(Laplacian):
+    name = "slowed"
+
+    def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
+        impl, args = super().implementation(problem, schedule)
+        if schedule.name == "block":
+            impl = Compiled(impl.name, impl.py_func, _Repeated(impl.parallel, 3), _Repeated(impl.serial, 3), impl.empty)
+        return impl, args
+
+
+register(Broken())
+register(Slowed())
