@@ -41,9 +41,12 @@ class RoofCurve:
         return float(np.median(bw[start:]))
 
     def knees(self) -> list[int]:
-        """Footprints after which bandwidth falls by more than KNEE_DROP: cache-level edges."""
-        bw = self.bandwidths
-        return [self.footprints[i] for i in range(len(bw) - 1) if bw[i + 1] < (1 - KNEE_DROP) * max(bw[: i + 1])]
+        """Cache-level edges: footprints after which the best bandwidth still reachable at larger
+        footprints (the suffix maximum, which ignores single-point noise) falls by more than
+        KNEE_DROP."""
+        bw = list(self.bandwidths)
+        suffix = [max(bw[i:]) for i in range(len(bw))]
+        return [self.footprints[i] for i in range(len(bw) - 1) if suffix[i + 1] < (1 - KNEE_DROP) * suffix[i]]
 
     def as_dict(self) -> dict[str, object]:
         return {

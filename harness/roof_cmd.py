@@ -1,0 +1,78 @@
+"""``stridewise roof``: the triad bandwidth curve of this machine, alone (a quick look at a new lab machine)."""
+
+from __future__ import annotations
+
+import argparse
+import multiprocessing
+import re
+import sys
+from typing import Any
+
+from harness import machine
+from harness.roof import RoofCurve
+from harness.tables import render
+from harness.worker import worker_environment
+from kernels.errors import StridewiseError
+
+_UNITS = {"": 1, "B": 1, "KIB": 1 << 10, "MIB": 1 << 20, "GIB": 1 << 30, "KB": 10**3, "MB": 10**6, "GB": 10**9}
+
+
+def parse_bytes(text: str) -> int:
+    """'512MiB' -> 536870912; plain integers are bytes."""
+    m = re.fullmatch(r"\s*(\d+)\s*([A-Za-z]*)\s*", text)
+    if not m or m[2].upper() not in _UNITS or int(m[1]) <= 0:
+        raise StridewiseError(f"bad size '{text}'; write a positive number with an optional unit: B, KiB, MiB, GiB, KB, MB, GB")
+    return int(m[1]) * _UNITS[m[2].upper()]
+
+
+def _measure(threads: int, max_bytes: int, out: Any) -> None:
+    import numba
+
+    from harness.roof import measure_curve
+
+    numba.set_num_threads(threads)
+    out.put(measure_curve(threads, max_bytes).as_dict())
+
+
+def run_roof(args: argparse.Namespace) -> int:
+    usable = machine.usable_cores()
+    if args.threads:
+        try:
+            counts = [int(t) for t in args.threads.split(",")]
+        except ValueError:
+            raise StridewiseError(f"bad thread counts '{args.threads}'; write positive integers, e.g. 1,2") from None
+        if any(c <= 0 for c in counts):
+            raise StridewiseError(f"thread counts must be positive, got {args.threads}")
+    else:
+        counts = sorted({1, usable})
+    max_bytes = parse_bytes(args.max_bytes)
+    ctx = multiprocessing.get_context("spawn")
+    curves = []
+    for threads in counts:  # one fresh process per thread count, like the sweep's workers
+        q = ctx.Queue()
+        import os
+
+        saved = dict(os.environ)
+        os.environ.update(worker_environment(threads, "default", False))
+        try:
+            proc = ctx.Process(target=_measure, args=(threads, max_bytes, q), daemon=True)
+            proc.start()
+        finally:
+            os.environ.clear()
+            os.environ.update(saved)
+        curves.append(RoofCurve.from_dict(q.get()))
+        proc.join()
+    records = []
+    for curve in curves:
+        for fp, bw in zip(curve.footprints, curve.bandwidths):
+            records.append({"threads": curve.threads, "footprint_MiB": fp / 2**20, "GB/s": bw / 1e9})
+    print(render(records, args.format, floatfmt=".4g"), end="")
+    for curve in curves:
+        knees = ", ".join(f"{k / 2**20:.3g} MiB" for k in curve.knees()) or "none"
+        print(f"{curve.threads} thread(s): memory roof {curve.memory_roof() / 1e9:.1f} GB/s; knees after {knees}", file=sys.stderr)
+    if args.plot:
+        from harness.plots import plot_roof
+
+        plot_roof(curves, args.plot)
+        print(f"plot written to {args.plot}", file=sys.stderr)
+    return 0

@@ -1,0 +1,33 @@
+"""pytest-benchmark suite: every kernel x schedule over a few layouts, small sizes.
+
+Run with timing on:  pytest tests/bench --benchmark-enable --benchmark-save=NAME [--benchmark-save-data]
+(the default test run disables timing and executes each benchmark once as a check). A saved
+JSON can be imported by ``stridewise import-bench`` when that command is available.
+"""
+
+from __future__ import annotations
+
+import numba
+import pytest
+
+from kernels.grid import Extents
+from kernels.registry import all_kernels
+
+GRID = Extents(var=4, z=32, y=64, x=64)
+LAYOUTS = ("var.z.y.x", "y.x.z.var", "Y.X.var.z.y8.x16")
+CASES = [(k, s.name, layout) for k, kernel in all_kernels().items() for s in kernel.schedules for layout in LAYOUTS]
+
+
+@pytest.mark.parametrize("kernel_name, schedule, layout", CASES, ids=["/".join(c) for c in CASES])
+def test_kernel(benchmark: pytest.FixtureRequest, kernel_name: str, schedule: str, layout: str) -> None:
+    numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+    kernel = all_kernels()[kernel_name]
+    problem = kernel.make_problem(layout, GRID, "float64")
+    check = kernel.validate(problem, schedule)
+    assert check.ok, check.message  # never time a wrong answer
+    call = kernel.bind(problem, schedule)
+    benchmark.extra_info.update(
+        kernel=kernel_name, schedule=schedule, layout=layout, grid=str(GRID), dtype="float64",
+        threads=numba.get_num_threads(), traffic_bytes=kernel.traffic_bytes(GRID, "float64"), flops=kernel.flops(GRID),
+    )
+    benchmark(call)

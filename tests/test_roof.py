@@ -1,0 +1,52 @@
+"""Roof curve arithmetic and the STREAM counting rule."""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+import pytest
+
+from harness.roof import RoofCurve, footprints
+from harness.roof_cmd import parse_bytes
+from kernels.errors import StridewiseError
+from kernels.triad import TRIAD, triad_arrays, triad_bytes
+
+
+def test_stream_counting_rule() -> None:
+    """STREAM (McCalpin) counts the triad a = b + q*c as 3 words per element: 24 bytes in float64,
+    with no write-allocate traffic (from the benchmark's published counting rules, from memory)."""
+    assert triad_bytes(1000, 8) == 24_000
+    assert triad_bytes(1000, 4) == 12_000
+
+
+def test_triad_computes_a_triad() -> None:
+    numba.set_num_threads(1)
+    a, b, c = triad_arrays(3 * 8 * 1000)
+    b[:] = np.arange(b.size)
+    c[:] = 2.0
+    TRIAD.parallel(a, b, c, np.float64(3.0), 1)
+    np.testing.assert_array_equal(a, b + 3.0 * c)
+    assert a.ctypes.data % 64 == 0
+
+
+def test_curve_interpolation_plateau_and_knees() -> None:
+    fps = tuple(2**k for k in range(14, 31))  # 16 KiB .. 1 GiB
+    bw = tuple(200e9 if f <= 32 << 10 else 100e9 if f <= 1 << 20 else 30e9 if f <= 32 << 20 else 16e9 for f in fps)
+    curve = RoofCurve(1, fps, bw)
+    assert curve.memory_roof() == pytest.approx(16e9)
+    assert curve.knees() == [32 << 10, 1 << 20, 32 << 20]
+    assert curve.at(fps[0] / 4) == pytest.approx(200e9)  # clamped below
+    assert curve.at(fps[-1] * 4) == pytest.approx(16e9)  # clamped above
+    mid = curve.at(np.sqrt((1 << 20) * (2 << 20)))
+    assert 30e9 < mid < 100e9  # log-log interpolation between neighbours
+    noisy = RoofCurve(2, fps[:4], (100e9, 180e9, 95e9, 170e9))
+    assert noisy.knees() == []  # a zigzag is not a cache edge
+    assert RoofCurve.from_dict(curve.as_dict()) == curve
+
+
+def test_footprints_and_sizes() -> None:
+    pts = footprints(1 << 20)
+    assert pts[0] == 16 << 10 and pts[-1] == 1 << 20 and pts == sorted(pts)
+    assert parse_bytes("512MiB") == 512 << 20 and parse_bytes("2GiB") == 2 << 30 and parse_bytes("1000") == 1000
+    with pytest.raises(StridewiseError, match="'12 parsecs'"):
+        parse_bytes("12 parsecs")
