@@ -186,9 +186,10 @@ def run_sweep(
     store.write_metadata(metadata)
     cases = store.cases()
     store.write_summary(render_summary(cases, metadata))
-    failed = int((cases["status"] != "ok").sum()) if len(cases) else 0
+    real = cases[cases["kernel"] != "triad"] if len(cases) else cases
+    failed = int((real["status"] != "ok").sum()) if len(real) else 0
     if not quiet or failed or interrupted:
-        print(f"stridewise: {metadata['status']}: {len(cases)} cases recorded, {failed} failed; summary in {store.path / 'summary.md'}",
+        print(f"stridewise: {metadata['status']}: {len(real)} cases recorded, {failed} failed; summary in {store.path / 'summary.md'}",
               file=sys.stderr)
     for text in crashed:
         print(f"stridewise: worker crashed:\n{text}", file=sys.stderr)
@@ -225,7 +226,7 @@ def _drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progres
             progress.set_postfix_str(f"{current} round {payload}")
         elif kind == "group":
             _record_group(payload, store, metadata)
-            progress.update(len(payload["records"]))
+            progress.update(sum(1 for r in payload["records"] if r["kernel"] != "triad"))
         elif kind == "interrupted":
             metadata["groups"][payload] = {"status": "interrupted: not recorded, rerun by --resume"}
         elif kind == "crash":
@@ -282,7 +283,7 @@ def _compile_totals(metadata: dict[str, Any]) -> None:
 def _progress(total: int, quiet: bool) -> Any:
     from tqdm import tqdm
 
-    return tqdm(total=total, unit="case", disable=quiet, dynamic_ncols=True, file=sys.stderr)
+    return tqdm(total=total, unit="case", disable=quiet, dynamic_ncols=True, mininterval=0.5, file=sys.stderr)
 
 
 def _suite_text(suite_arg: str | None) -> str:

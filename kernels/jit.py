@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import inspect
+import json
 import os
 import re
 import time
@@ -139,8 +140,30 @@ def vector_report(compiled: Compiled, args: tuple[Any, ...], parallel: bool = Tr
     numba cannot show the assembly of code loaded from its cache, so this compiles a private,
     uncached copy with the same options. ``vectorised`` is true when packed arithmetic appears
     (the threaded build's outlined loop body included); the widest register class used by packed
-    code gives the vector width (xmm 128, ymm 256, zmm 512 bits).
+    code gives the vector width (xmm 128, ymm 256, zmm 512 bits). Reports are kept in the
+    source-hash-keyed cache directory, so each specialisation is inspected once per source.
     """
+    key = f"{compiled.name}|{parallel}|{tuple(numba.typeof(a) for a in args)}|{numba_config.CPU_NAME or ''}"
+    store = Path(cache_dir()) / "vector_reports.json"
+    try:
+        known = json.loads(store.read_text())
+    except (OSError, ValueError):
+        known = {}
+    if key in known:
+        return known[key]
+    report = _inspect(compiled, args, parallel)
+    known[key] = report
+    try:
+        store.parent.mkdir(parents=True, exist_ok=True)
+        tmp = store.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(json.dumps(known))
+        os.replace(tmp, store)
+    except OSError:
+        pass  # a read-only cache only costs the re-inspection next time
+    return report
+
+
+def _inspect(compiled: Compiled, args: tuple[Any, ...], parallel: bool) -> dict[str, Any]:
     opts = {k: v for k, v in JIT_OPTIONS.items() if k != "cache"}
     dispatcher = numba.njit(parallel=parallel, **opts)(compiled.py_func)
     sig = tuple(numba.typeof(a) for a in args)
