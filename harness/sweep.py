@@ -185,7 +185,7 @@ def run_sweep(
     _compile_totals(metadata)
     store.write_metadata(metadata)
     cases = store.cases()
-    store.write_summary(render_summary(cases, metadata))
+    store.write_summary(_summary(store, cases, metadata))
     real = cases[cases["kernel"] != "triad"] if len(cases) else cases
     failed = int((real["status"] != "ok").sum()) if len(real) else 0
     if not quiet or failed or interrupted:
@@ -268,6 +268,19 @@ def _record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, A
     }
     metadata["compiles"].extend(result["compiles"])
     store.write_metadata(metadata)
+
+
+def _summary(store: RunStore, cases: Any, metadata: dict[str, Any]) -> str:
+    """The ranking report of this run; the plain case list when nothing can be ranked yet."""
+    from harness.rank import RankOptions, load_runs, rank_runs
+    from harness.report import render_markdown
+    from kernels.errors import StridewiseError
+
+    try:
+        ranking = rank_runs(load_runs([str(store.path)]), RankOptions())
+    except StridewiseError:
+        return render_summary(cases, metadata)
+    return render_markdown(ranking, title=f"Sweep `{metadata['suite']['name']}`: {metadata['status']}")
 
 
 def _compile_totals(metadata: dict[str, Any]) -> None:
