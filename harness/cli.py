@@ -55,7 +55,62 @@ def build_parser() -> argparse.ArgumentParser:
     rank_p.add_argument("--mix", help="kernel weights, e.g. varcoef=1,advection=2 (default: the suite's [mix])")
     rank_p.add_argument("--plots", metavar="DIR", help="write PNG plots here (needs the 'plot' extra)")
     rank_p.set_defaults(func=_rank)
+    gate_p = sub.add_parser("gate", help="compare a run with a stored baseline; exit 1 on significant slowdowns",
+                            description="Gate: exit 0 pass, 1 regression found, 2 unusable input.")
+    gate_p.add_argument("baseline", help="baseline file, or a directory holding <machine-id>.json baselines")
+    gate_p.add_argument("current", nargs="+", metavar="RUN_DIR", help="run directory (several: their runs are pooled)")
+    gate_p.add_argument("--threshold", type=float, default=0.10, help="slowdown that counts, as a fraction (default 0.10)")
+    gate_p.add_argument("--confidence", type=float, default=0.95, help="confidence level (default 0.95)")
+    gate_p.add_argument("--cases", action="append", default=[], metavar="GLOB", help="gate only case ids matching (repeatable)")
+    gate_p.add_argument("--normalise", nargs="?", const="triad", metavar="REF",
+                        help="scale each time by a same-run reference: 'triad' (default) or 'case:KERNEL|SCHEDULE|BUILD|LAYOUT'")
+    gate_p.add_argument("--format", default="md", choices=("md", "csv", "json"))
+    gate_p.add_argument("--out", help="write the report here instead of standard output")
+    gate_p.set_defaults(func=_gate)
+    base_p = sub.add_parser("baseline", help="manage gate baselines")
+    base_sub = base_p.add_subparsers(dest="action", metavar="ACTION", parser_class=_Parser)
+    base_sub.required = True
+    save_p = base_sub.add_parser("save", help="merge several runs into results/baselines/<machine-id>.json")
+    save_p.add_argument("runs", nargs="+", metavar="RUN_DIR")
+    save_p.add_argument("--out", help="baseline file to write (default: results/baselines/<machine-id>.json)")
+    save_p.add_argument("--min-runs", type=int, default=3, help="fewest runs accepted (default 3)")
+    save_p.set_defaults(func=_baseline_save)
+    imp_p = sub.add_parser("import-bench", help="import a pytest-benchmark JSON file as a run directory")
+    imp_p.add_argument("file")
+    imp_p.add_argument("--out", required=True, help="run directory to create")
+    imp_p.set_defaults(func=_import_bench)
     return parser
+
+
+def _gate(args: argparse.Namespace) -> int:
+    from harness.gate import GateOptions, run_gate
+
+    if not 0 < args.threshold:
+        raise StridewiseError(f"--threshold must be a positive fraction, got {args.threshold}")
+    if not 0.5 <= args.confidence < 1:
+        raise StridewiseError(f"--confidence must be in [0.5, 1), got {args.confidence}")
+    norm = args.normalise
+    if norm not in (None, "triad") and not (norm.startswith("case:") and norm.count("|") == 3):
+        raise StridewiseError(f"--normalise must be 'triad' or 'case:KERNEL|SCHEDULE|BUILD|LAYOUT', got '{norm}'")
+    options = GateOptions(args.threshold, args.confidence, tuple(args.cases), norm)
+    return run_gate(args.baseline, args.current, options, args.format, args.out)
+
+
+def _baseline_save(args: argparse.Namespace) -> int:
+    from harness.gate import save_baseline
+
+    path = save_baseline(args.runs, args.out, args.min_runs)
+    print(f"stridewise: baseline of {len(args.runs)} runs written to {path}", file=sys.stderr)
+    return 0
+
+
+def _import_bench(args: argparse.Namespace) -> int:
+    from harness.bench_import import import_bench
+
+    path, n, raw = import_bench(args.file, args.out)
+    note = "" if raw else " (no raw samples: ranked on summary figures only; the gate will refuse it)"
+    print(f"stridewise: {n} benchmarks imported into {path}{note}", file=sys.stderr)
+    return 0
 
 
 def _rank(args: argparse.Namespace) -> int:

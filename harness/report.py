@@ -60,6 +60,9 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     out = [f"# {title}", ""]
     for machine, md in r.runs.metadata.items():
         out += _machine_header(machine, md)
+        if md.get("imported", {}).get("raw_samples") is False:
+            out.append(f"Imported from {md['imported']['source']} without raw samples: ranked on the recorded medians, "
+                       "without tiers or dispersion.")
     out += [
         "",
         f"Ranked on each layout's best schedule (chosen on even rounds, figures from odd rounds). Tiers: paired "

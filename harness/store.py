@@ -104,7 +104,8 @@ class RunStore:
         header = next(csv.reader([lines[0]]))
         missing = [c for c in columns if c not in header]
         if missing:
-            raise RunStoreError(f"{target} is not a stridewise {name}: missing columns {', '.join(missing)}")
+            more = f" and {len(missing) - 3} more" if len(missing) > 3 else ""
+            raise RunStoreError(f"{target} is not a stridewise {name}: missing columns {', '.join(missing[:3])}{more}")
         if not text.endswith("\n") and len(lines) > 1:
             warnings.warn(f"{target}: last line is incomplete (interrupted write); it was ignored", stacklevel=2)
             lines = lines[:-1]

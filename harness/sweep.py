@@ -277,7 +277,8 @@ def _summary(store: RunStore, cases: Any, metadata: dict[str, Any]) -> str:
     from kernels.errors import StridewiseError
 
     try:
-        ranking = rank_runs(load_runs([str(store.path)]), RankOptions())
+        reference = metadata["suite"]["layouts"][0]  # speedups are also given over the suite's first layout
+        ranking = rank_runs(load_runs([str(store.path)]), RankOptions(reference=reference))
     except StridewiseError:
         return render_summary(cases, metadata)
     return render_markdown(ranking, title=f"Sweep `{metadata['suite']['name']}`: {metadata['status']}")
