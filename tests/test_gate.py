@@ -95,9 +95,9 @@ def test_new_and_missing_cases_and_filters() -> None:
     assert summary["gated"] == 1
 
 
-def _cli(*args: str, env: dict[str, str] | None = None) -> subprocess.CompletedProcess[str]:
-    return subprocess.run([sys.executable, "-m", "harness", *args], cwd=ROOT, capture_output=True, text=True,
-                          env={**os.environ, **(env or {})})
+def _cli(*args: str, env: dict[str, str] | None = None, cwd: Path = ROOT) -> subprocess.CompletedProcess[str]:
+    return subprocess.run([sys.executable, "-m", "harness", *args], cwd=cwd, capture_output=True, text=True,
+                          env={**os.environ, "PYTHONPATH": str(ROOT), **(env or {})})
 
 
 SUITE = """
@@ -156,12 +156,11 @@ def test_normalised_mode_against_quick_runs(tmp_path: Path) -> None:
         out = tmp_path / f"b{i}"
         assert _cli("sweep", "--quick", "--quiet", "--out", str(out)).returncode == 0
         runs.append(str(out))
-    base_dir = tmp_path / "baselines"
-    saved = _cli("baseline", "save", *runs)
-    assert saved.returncode == 0
-    written = Path(saved.stderr.split("written to ")[1].strip())
-    base_dir.mkdir()
-    written.rename(base_dir / written.name)
+    saved = _cli("baseline", "save", *runs, cwd=tmp_path)  # default path, relative to the working directory
+    assert saved.returncode == 0, saved.stderr
+    base_dir = tmp_path / "results" / "baselines"
+    (written,) = base_dir.glob("*.json")
+    assert written.stem == json.loads((Path(runs[0]) / "metadata.json").read_text())["fingerprint"]["machine_id"]
     summary_file = tmp_path / "summary.md"
     proc = _cli("gate", str(base_dir), runs[0], "--normalise", "--threshold", "2", env={"GITHUB_STEP_SUMMARY": str(summary_file)})
     assert proc.returncode == 0, proc.stdout + proc.stderr
