@@ -39,9 +39,15 @@ def sample_rounds(
     should_stop: Callable[[], bool],
     before_sample: Callable[[], Any] | None = None,
     on_round: Callable[[int], None] | None = None,
+    prepare: dict[str, Callable[[], Any]] | None = None,
 ) -> GroupSamples:
     """Warm-up rounds, then measured rounds until every case has ``min_repeats`` samples and at
-    least ``min_seconds`` of measured time (or ``max_rounds``). Raises Interrupted on stop."""
+    least ``min_seconds`` of measured time (or ``max_rounds``). Raises Interrupted on stop.
+
+    ``before_sample`` runs before every sample (cache eviction), ``prepare[case]`` before each
+    sample of that case (restoring inputs it overwrites); neither is inside the timed region.
+    """
+    prepare = prepare or {}
     out = GroupSamples()
     ids = list(calls)
     if not ids:
@@ -58,9 +64,12 @@ def sample_rounds(
         kernel_ns = 0
         flush_ns = 0
         for position, case_id in enumerate(ids):
-            if before_sample is not None:
+            if before_sample is not None or case_id in prepare:
                 f0 = time.perf_counter_ns()
-                before_sample()
+                if case_id in prepare:
+                    prepare[case_id]()
+                if before_sample is not None:
+                    before_sample()
                 flush_ns += time.perf_counter_ns() - f0
             ns = _measure(calls[case_id])
             kernel_ns += ns

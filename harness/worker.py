@@ -136,6 +136,7 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
     toucher = first_touch if plan.timing.first_touch else None
     records: dict[str, dict[str, Any]] = {}
     calls: dict[str, Bound] = {}
+    prepare: dict[str, Any] = {}
     compiles: list[dict[str, Any]] = []
     options = dict(plan.kernel_options)
 
@@ -205,6 +206,8 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
                     rec.update({k: seen_reports[key][k] for k in ("vectorised", "vector_bits")})
                 rec["status"] = "ok"
                 calls[case.id] = Bound(dispatcher, args)
+                if kernel.overwrites_inputs:
+                    prepare[case.id] = _restorer(problem)
             except Exception as exc:  # noqa: BLE001 - recorded as the case's error
                 rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
     _add_roof_probes(group, records, calls)
@@ -217,6 +220,7 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
             stop.is_set,
             before_sample=flush,
             on_round=lambda r: queue.put(("round", r)),
+            prepare=prepare,
         )
     except Interrupted:
         raise _Stopped from None
@@ -233,6 +237,23 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
         "compiles": compiles,
         "finished": time.time(),
     }
+
+
+def _restorer(problem: Any) -> Any:
+    """Copies of a problem's input buffers and a function that writes them back with the same
+    per-thread block partition as first touch (so restores neither move pages nor warm one core)."""
+    import numpy as np
+
+    from kernels.parallel import parallel_copy
+
+    saved = [(st.data, st.data.copy()) for st in problem.fields.values()]
+    saved += [(arr, arr.copy()) for arr in problem.arrays.values()]
+
+    def restore() -> None:
+        for live, pristine in saved:
+            parallel_copy(np.asarray(live), pristine)
+
+    return restore
 
 
 #: At most this many triad probes per group (distinct footprints beyond it share the nearest).

@@ -192,3 +192,27 @@ def test_resume_refuses_a_changed_suite(tmp_path: Path) -> None:
     assert proc.returncode == 2 and "not the given" in proc.stderr
     proc = _sweep("--quick", "--out", str(out))
     assert proc.returncode == 2 and "already holds a run" in proc.stderr
+
+
+def test_prepare_hook_runs_outside_the_timed_region_before_each_sample() -> None:
+    calls: list[str] = []
+    slow_prepare = {"a": lambda: (calls.append("prep"), time.sleep(0.01))}
+    policy = Timing(warmup=0, min_repeats=3, min_seconds=0.0)
+    out = sample_rounds({"a": lambda: calls.append("run"), "b": lambda: None}, policy, random.Random(0), lambda: False,
+                        prepare=slow_prepare)
+    assert calls == ["prep", "run"] * 3
+    assert max(r[4] for r in out.rows if r[0] == "a") < 5_000_000  # the 10 ms restore was not timed
+
+
+@pytest.mark.slow
+def test_more_threads_than_cores_warns_then_runs(tmp_path: Path) -> None:
+    from harness.machine import usable_cores
+
+    too_many = usable_cores() + 1
+    path = _suite(tmp_path, '["laplacian"]', repeats=3, extra="")
+    path.write_text(path.read_text().replace("counts = [1]", f"counts = [{too_many}]"))
+    out = tmp_path / "run"
+    proc = _sweep(str(path), "--out", str(out))
+    assert proc.returncode == 0, proc.stderr
+    assert f"{too_many} threads exceed" in proc.stderr
+    assert RunStore(out).metadata()["workers"][str(too_many)]["numba_num_threads"] == too_many
