@@ -50,10 +50,11 @@ class Group:
     dtype: str
     threads: int
     cases: tuple[CaseKey, ...]
+    tag: str = ""  # distinguishes a second group of the same kernel (automatic conversions)
 
     @property
     def label(self) -> str:
-        return f"{self.kernel} {self.grid} {self.dtype} {self.threads}t"
+        return f"{self.kernel}{self.tag} {self.grid} {self.dtype} {self.threads}t"
 
 
 def plan(suite: Suite, thread_counts: tuple[int, ...]) -> list[Group]:

@@ -61,6 +61,7 @@ class Suite:
     threads: Threads
     timing: Timing
     conversions: tuple[tuple[str, str], ...] = ()
+    conversions_auto: int = 0  # also time conversions among each kernel's best N layouts, per thread count
     mix: tuple[tuple[str, float], ...] = ()
     kernel_options: tuple[tuple[str, tuple[tuple[str, int], ...]], ...] = field(default=())
 
@@ -93,7 +94,7 @@ _SECTION_KEYS = {
     "layouts": {"specs", "families"},
     "threads": {"counts", "layer", "pin"},
     "timing": set(Timing.__dataclass_fields__),
-    "conversions": {"pairs"},
+    "conversions": {"pairs", "auto"},
 }
 _FAMILY_KEYS = {"permutations": set(), "tilings": {"tiles", "order"}, "paddings": {"base", "pads", "token"}}
 
@@ -226,9 +227,17 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
         threads=threads,
         timing=timing,
         conversions=tuple(pairs),
+        conversions_auto=_auto(data.get("conversions", {}).get("auto", 0)),
         mix=tuple(mix),
         kernel_options=tuple(options),
     )
+
+
+def _auto(value: Any) -> int:
+    _expect(value, int, "conversions.auto")
+    if value < 0:
+        raise SuiteError(f"conversions.auto must be >= 0 (layouts per kernel), got {value}")
+    return int(value)
 
 
 def _timing(section: dict[str, Any]) -> Timing:

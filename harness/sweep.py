@@ -16,6 +16,7 @@ from typing import Any, Iterator
 
 from harness import machine
 from harness.plan import Group, group_bytes, plan
+from kernels.errors import StridewiseError
 from harness.roof import RoofCurve
 from harness.store import RunStore, RunStoreError
 from harness.suite import Suite, SuiteError, load_suite, parse_suite
@@ -153,31 +154,44 @@ def run_sweep(
     stopper = _Stop(stop_event)
     progress = _progress(total_cases, quiet)
     crashed = []
+    flush_bytes = suite.timing.flush_bytes or 2 * (machine.last_level_cache_bytes() or 64 << 20)
+
+    def run_worker(threads: int, groups_: tuple[Group, ...]) -> str | None:
+        wplan = WorkerPlan(
+            threads=threads,
+            groups=groups_,
+            timing=suite.timing,
+            seed=suite.seed,
+            pin=suite.threads.pin,
+            kernel_options=suite.kernel_options,
+            inspect_vectorisation=not no_vector_report,
+            flush_bytes=flush_bytes,
+        )
+        q = ctx.Queue()
+        proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event), daemon=True)
+        with _environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
+            proc.start()
+        crash = _drain(q, proc, store, metadata, progress)
+        proc.join()
+        return crash
+
     with stopper.installed():
         for threads in counts:
             mine = tuple(g for g in todo if g.threads == threads)
-            if not mine or stop_event.is_set():
-                continue
-            flush_bytes = suite.timing.flush_bytes or 2 * (machine.last_level_cache_bytes() or 64 << 20)
-            wplan = WorkerPlan(
-                threads=threads,
-                groups=mine,
-                timing=suite.timing,
-                seed=suite.seed,
-                pin=suite.threads.pin,
-                kernel_options=suite.kernel_options,
-                inspect_vectorisation=not no_vector_report,
-                flush_bytes=flush_bytes,
-            )
-            q = ctx.Queue()
-            proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event), daemon=True)
-            with _environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
-                proc.start()
-            crash = _drain(q, proc, store, metadata, progress)
-            proc.join()
-            if crash:
-                crashed.append(crash)
-                break
+            if mine and not stop_event.is_set():
+                crash = run_worker(threads, mine)
+                if crash:
+                    crashed.append(crash)
+                    break
+            if suite.conversions_auto and not stop_event.is_set():
+                extra = auto_conversions(store, suite, threads)
+                if extra:
+                    progress.total += sum(len(g.cases) for g in extra)
+                    progress.refresh()
+                    crash = run_worker(threads, tuple(extra))
+                    if crash:
+                        crashed.append(crash)
+                        break
     progress.close()
     metadata["ended"] = _now()
     interrupted = stopper.signal is not None
@@ -198,6 +212,39 @@ def run_sweep(
     if crashed:
         return 1
     return FAILED_BASE + min(failed, 100) if failed else 0
+
+
+def auto_conversions(store: RunStore, suite: Suite, threads: int) -> list[Group]:
+    """Conversion groups among each kernel's best layouts at this thread count, from the results
+    so far: the first ``conversions.auto`` layouts of tier 1 in median order, plus tier 1's
+    simplest layout (the one a recommendation prefers on a tie); every ordered pair of picks of
+    different kernels that is not measured yet."""
+    from harness.plan import ARROW, CONVERT, CaseKey
+    from harness.rank import RankOptions, _is_plain, load_runs, rank_runs
+
+    try:
+        table = rank_runs(load_runs([str(store.path)]), RankOptions()).table
+    except StridewiseError:
+        return []
+    done = store.finished_case_ids()
+    groups = []
+    for (grid, dtype), grp in table[table["threads"] == threads].groupby(["grid", "dtype"], sort=False):
+        picks: dict[str, set[str]] = {}
+        for kernel, kg in grp.groupby("kernel", sort=False):
+            top = kg[kg["tier"] == kg["tier"].min()].sort_values("median_ns")
+            chosen = list(top["layout"][: suite.conversions_auto])
+            plain = [l for l in top["layout"] if _is_plain(l)]
+            if plain:
+                chosen.append(plain[0])
+            picks[kernel] = set(chosen)
+        pairs = sorted({(a, b) for ka, la in picks.items() for kb, lb in picks.items() if ka != kb
+                        for a in la for b in lb if a != b})
+        builds = ("parallel",)
+        cases = tuple(CaseKey(CONVERT, "rows", b, f"{x}{ARROW}{y}", dtype, grid, threads) for x, y in pairs for b in builds)
+        cases = tuple(c for c in cases if c.id not in done)
+        if cases:
+            groups.append(Group(CONVERT, grid, dtype, threads, cases, tag="-auto"))
+    return groups
 
 
 def _drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progress: Any) -> str | None:

@@ -282,7 +282,7 @@ def _add_roof_probes(group: Group, records: dict[str, dict[str, Any]], calls: di
     for size in sizes:
         a, b, c = triad_arrays(size, group.dtype)
         # The schedule field names the group, so probes of different groups never share an id.
-        key = CaseKey("triad", f"probe-{group.kernel}", "parallel", f"{a.nbytes * 3}B", group.dtype, group.grid, group.threads)
+        key = CaseKey("triad", f"probe-{group.kernel}{group.tag}", "parallel", f"{a.nbytes * 3}B", group.dtype, group.grid, group.threads)
         rec = _base_record(key, "roof", 3 * a.nbytes, triad_bytes(a.shape[0], a.itemsize), 2 * a.shape[0])
         rec.update(status="ok", message="roof probe")
         records[key.id] = rec

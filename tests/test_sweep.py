@@ -216,3 +216,18 @@ def test_more_threads_than_cores_warns_then_runs(tmp_path: Path) -> None:
     assert proc.returncode == 0, proc.stderr
     assert f"{too_many} threads exceed" in proc.stderr
     assert RunStore(out).metadata()["workers"][str(too_many)]["numba_num_threads"] == too_many
+
+
+@pytest.mark.slow
+def test_automatic_conversions_price_layout_switching(tmp_path: Path) -> None:
+    extra = "[conversions]\nauto = 1\n[mix]\nlevelcoef = 1\nlaplacian = 1\n"
+    out = tmp_path / "run"
+    proc = _sweep(str(_suite(tmp_path, extra=extra)), "--out", str(out))
+    assert proc.returncode == 0, proc.stderr
+    cases = RunStore(out).cases()
+    conversions = cases[cases["kernel"] == "convert"]
+    assert len(conversions) >= 1 and (conversions["status"] == "ok").all()
+    assert cases["case_id"].is_unique
+    summary = (out / "summary.md").read_text()
+    assert "## Kernel mix" in summary
+    assert "switching costs" in summary  # every hop between per-kernel winners was measured
