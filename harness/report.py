@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 from typing import Any
 
 import numpy as np
@@ -30,6 +31,18 @@ def _headline(kernel: str, family: str, threads: int, grp: pd.DataFrame) -> str:
     tied = grp[grp["tier"] == best["tier"]]["layout"].tolist() if pd.notna(best["tier"]) else [best["layout"]]
     tail = f" (tied in tier 1 with {', '.join(f'`{t}`' for t in tied[1:])})" if len(tied) > 1 else ""
     return f"At {threads} thread(s), `{best['layout']}` is {ratio:.1f}x faster than `{worst['layout']}` for {what}{tail}."
+
+
+def _power_note(grp: pd.DataFrame, alpha: float) -> str | None:
+    """Say so when the rounds are too few for the paired test to separate anything."""
+    n = int(grp["rounds"].min()) if "rounds" in grp and grp["rounds"].notna().all() else 0
+    m = len(grp) - 1
+    if m < 1 or n == 0 or m * 2.0**-n < alpha:
+        return None
+    needed = 2 * math.ceil(math.log2(m / alpha))
+    return (f"**Too few rounds to separate layouts:** with {n} reporting rounds the smallest possible p-value is "
+            f"{2.0**-n:.3g}, so {m} Holm-corrected comparisons can never reach alpha {alpha:g}; the tiers above carry "
+            f"no information. Run at least {needed} measured rounds (timing.min_repeats).")
 
 
 def _machine_header(machine: str, md: dict[str, Any]) -> list[str]:
@@ -76,6 +89,9 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
         out.append(f"## {kernel}, {grid}, {dtype}, {threads} thread(s)" + (f", machine {machine}" if len(r.runs.metadata) > 1 else ""))
         out.append("")
         out.append(_headline(kernel, families.get(kernel, ""), int(threads), grp))
+        power = _power_note(grp, opts.alpha)
+        if power:
+            out += ["", power]
         if (grp["split"] != "halves").any() if "split" in grp else False:
             out.append("")
             out.append("Too few rounds to split: schedules were chosen and reported on the same rounds.")

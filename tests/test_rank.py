@@ -181,3 +181,17 @@ def test_empty_or_foreign_csv_is_a_clear_error(tmp_path: Path, cases_text: str, 
 def test_not_a_run_directory(tmp_path: Path) -> None:
     proc = subprocess.run([sys.executable, "-m", "harness", "rank", str(tmp_path)], cwd=ROOT, capture_output=True, text=True)
     assert proc.returncode == 2 and "not a run directory" in proc.stderr
+
+
+def test_report_says_when_rounds_are_too_few_to_separate() -> None:
+    rng = np.random.default_rng(9)
+    times = {"var.z.y.x": 1e6, "y.x.z.var": 3e6, "var.y.x.z": 4e6}
+    few = synthetic_rounds(times, 6, 0.01, rng)  # 3 reporting rounds: smallest p = 1/8
+    cases, samples = _frames({(l, "s"): s for l, s in few.items()})
+    text = render_markdown(_ranking(cases, samples))
+    assert "Too few rounds to separate layouts" in text
+    many = synthetic_rounds(times, 24, 0.01, rng)
+    cases, samples = _frames({(l, "s"): s for l, s in many.items()})
+    ranking = _ranking(cases, samples)
+    assert "Too few rounds" not in render_markdown(ranking)
+    assert list(ranking.table["tier"]) == [1, 2, 3]
