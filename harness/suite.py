@@ -132,10 +132,14 @@ def _layouts(section: dict[str, Any]) -> tuple[str, ...]:
         if kind == "permutations":
             out += permutations()
         elif kind == "tilings":
-            tiles = parse_tile_sizes(",".join(_expect(fam.get("tiles", ["8x8"]), list, f"{where}.tiles")))
-            out += tilings(tiles, fam.get("order", "Y.X.var.z.y.x"))
+            tiles = [_expect(t, str, f"{where}.tiles item") for t in _expect(fam.get("tiles", ["8x8"]), list, f"{where}.tiles")]
+            out += tilings(parse_tile_sizes(",".join(tiles)), _expect(fam.get("order", "Y.X.var.z.y.x"), str, f"{where}.order"))
         else:
-            out += paddings(fam.get("base", "var.z.y.x"), _expect(fam.get("pads", [0, 1, 8]), list, f"{where}.pads"), fam.get("token"))
+            pads = [_expect(p, int, f"{where}.pads item") for p in _expect(fam.get("pads", [0, 1, 8]), list, f"{where}.pads")]
+            token = fam.get("token")
+            out += paddings(
+                _expect(fam.get("base", "var.z.y.x"), str, f"{where}.base"), pads, None if token is None else _expect(token, str, f"{where}.token")
+            )
     unique = list(dict.fromkeys(layout.spec for layout in out))
     if not unique:
         raise SuiteError("the suite names no layouts; give layouts.specs and/or layouts.families")
