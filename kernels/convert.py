@@ -14,36 +14,29 @@ from numba import prange
 
 from kernels.grid import LOGICAL_AXES
 from kernels.jit import Compiled, build
-from kernels.parallel import chunk, thread_count
+from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.state import State
 
 NDIM = 6
 
 
-def convert_rows(src, dst, counts, strides, mul, tables, row_axis, nchunks):  # type: ignore[no-untyped-def]
-    """dst axes: counts/strides (6); mul[a, d]: step of logical axis a per index of dst axis d;
+def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_axis, nchunks):  # type: ignore[no-untyped-def]
+    """dst axes: counts/strides (6); mulA[d]: step of logical axis A (var, z, y, x) per index of dst axis d;
     tables[a, n]: source element offset of logical index n along axis a (padded with zeros);
     row_axis: the logical axis that dst's innermost axis runs along."""
-    n1, n2, n3, n4, n5 = counts[1], counts[2], counts[3], counts[4], counts[5]
-    step = mul[row_axis, 5]
-    nitems = counts[0] * n1 * n2 * n3
+    n4, n5 = counts[4], counts[5]
+    step = (mul0[5], mul1[5], mul2[5], mul3[5])[row_axis]
+    nitems = counts[0] * counts[1] * counts[2] * counts[3]
     for t in prange(nchunks):
         lo, hi = chunk(nitems, nchunks, t)
         for item in range(lo, hi):
-            i3 = item % n3
-            r = item // n3
-            i2 = r % n2
-            r = r // n2
-            i1 = r % n1
-            i0 = r // n1
-            base = i0 * strides[0] + i1 * strides[1] + i2 * strides[2] + i3 * strides[3]
-            c0 = i0 * mul[0, 0] + i1 * mul[0, 1] + i2 * mul[0, 2] + i3 * mul[0, 3]
-            c1 = i0 * mul[1, 0] + i1 * mul[1, 1] + i2 * mul[1, 2] + i3 * mul[1, 3]
-            c2 = i0 * mul[2, 0] + i1 * mul[2, 1] + i2 * mul[2, 2] + i3 * mul[2, 3]
-            c3 = i0 * mul[3, 0] + i1 * mul[3, 1] + i2 * mul[3, 2] + i3 * mul[3, 3]
+            i0, i1, i2, i3 = unflatten4(item, counts)
+            base = dot4(i0, i1, i2, i3, strides)
+            c0, c1 = dot4(i0, i1, i2, i3, mul0), dot4(i0, i1, i2, i3, mul1)
+            c2, c3 = dot4(i0, i1, i2, i3, mul2), dot4(i0, i1, i2, i3, mul3)
             for i4 in range(n4):
                 rb = base + i4 * strides[4]
-                a0, a1, a2, a3 = c0 + i4 * mul[0, 4], c1 + i4 * mul[1, 4], c2 + i4 * mul[2, 4], c3 + i4 * mul[3, 4]
+                a0, a1, a2, a3 = c0 + i4 * mul0[4], c1 + i4 * mul1[4], c2 + i4 * mul2[4], c3 + i4 * mul3[4]
                 total = tables[0, a0] + tables[1, a1] + tables[2, a2] + tables[3, a3]
                 start = a0 if row_axis == 0 else a1 if row_axis == 1 else a2 if row_axis == 2 else a3
                 others = total - tables[row_axis, start]  # only the row's own axis moves along the row
@@ -81,5 +74,5 @@ def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
             if tok.axis == axis:
                 tables[k, : idx.size] += tok.logical_index(idx) * src_elem[pos]
     row_axis = LOGICAL_AXES.index(dst.layout.tokens[-1].axis)
-    args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, mul, tables, row_axis, thread_count())
+    args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, *mul, tables, row_axis, thread_count())
     return CONVERT, args

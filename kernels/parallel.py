@@ -24,6 +24,22 @@ def chunk(n_items, n_chunks, t):  # type: ignore[no-untyped-def]
     return lo, hi
 
 
+@inline
+def unflatten4(item, counts):  # type: ignore[no-untyped-def]
+    """Indices along the first four walked axes of flat item ``item`` (C order, ``counts`` extents)."""
+    i3 = item % counts[3]
+    r = item // counts[3]
+    i2 = r % counts[2]
+    r = r // counts[2]
+    return r // counts[1], r % counts[1], i2, i3
+
+
+@inline
+def dot4(i0, i1, i2, i3, weights):  # type: ignore[no-untyped-def]
+    """Weighted sum of four axis indices: an offset, or one logical coordinate."""
+    return i0 * weights[0] + i1 * weights[1] + i2 * weights[2] + i3 * weights[3]
+
+
 def _fill_blocks(buf, value, nchunks):  # type: ignore[no-untyped-def]
     n = buf.shape[0]
     for t in prange(nchunks):

@@ -20,7 +20,7 @@ from numba import prange
 from kernels.base import Kernel, Problem, Schedule
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
-from kernels.parallel import chunk, thread_count
+from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.registry import register
 from kernels.stencils.common import BLOCK, CYCLIC, periodic_pad, row_geometry, shifted, smooth_field, stencil_tolerance
 
@@ -38,24 +38,18 @@ def point(q, u, v, out, p, pw, qe, qw, qn, qs, we, ww, wn, ws, coef):  # type: i
 
 def advection_rows(q, u, v, out, counts, strides, jmul, imul, dy, dx, wstrides, wdy, wdx, edge, coef, nchunks, cyclic):  # type: ignore[no-untyped-def]
     """Walk the rows of flat ``q``/``out``; the wind is walked with its own strides (var stride 0)."""
-    n1, n2, n3, n4, n5 = counts[1], counts[2], counts[3], counts[4], counts[5]
-    nitems = counts[0] * n1 * n2 * n3
+    n4, n5 = counts[4], counts[5]
+    nitems = counts[0] * counts[1] * counts[2] * counts[3]
     tj, ti, wstep = jmul[5], imul[5], wstrides[5]
     lo_in, hi_in = edge, n5 - edge
     for t in prange(nchunks):
         lo, hi = chunk(nitems, nchunks, t)
         start, stop, step = (t, nitems, nchunks) if cyclic else (lo, hi, 1)
         for item in range(start, stop, step):
-            i3 = item % n3
-            r = item // n3
-            i2 = r % n2
-            r = r // n2
-            i1 = r % n1
-            i0 = r // n1
-            base = i0 * strides[0] + i1 * strides[1] + i2 * strides[2] + i3 * strides[3]
-            wbase = i0 * wstrides[0] + i1 * wstrides[1] + i2 * wstrides[2] + i3 * wstrides[3]
-            j0 = i0 * jmul[0] + i1 * jmul[1] + i2 * jmul[2] + i3 * jmul[3]
-            x0 = i0 * imul[0] + i1 * imul[1] + i2 * imul[2] + i3 * imul[3]
+            i0, i1, i2, i3 = unflatten4(item, counts)
+            base = dot4(i0, i1, i2, i3, strides)
+            wbase = dot4(i0, i1, i2, i3, wstrides)
+            j0, x0 = dot4(i0, i1, i2, i3, jmul), dot4(i0, i1, i2, i3, imul)
             for i4 in range(n4):
                 rb = base + i4 * strides[4]
                 wb = wbase + i4 * wstrides[4]
