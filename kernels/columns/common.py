@@ -122,6 +122,20 @@ def right_hand_side(extents: Extents, seed: int) -> np.ndarray:
     return rng.standard_normal(extents.shape) + 1.0
 
 
+def field_coefficient_inputs(extents: Extents, dtype: np.dtype, seed: int, coefficient_var: int) -> dict[str, np.ndarray]:
+    """Seeded inputs of a solve with 3-D coefficients: a, b, c of var extent ``coefficient_var``
+    (the state's var extent, or 1 when every variable shares its column's system) and d.
+
+    The diffusivity is the height profile times a uniform factor in [0.5, 1.5) per point.
+    """
+    rng = np.random.default_rng(seed)
+    profile = interface_diffusivity(extents.z).reshape(1, -1, 1, 1)
+    noise = rng.uniform(0.5, 1.5, size=(coefficient_var, extents.z - 1, extents.y, extents.x))
+    a, b, c = diffusion_coefficients(profile * noise, dt=600.0)
+    d = right_hand_side(extents, seed + 1)
+    return {k: v.astype(dtype) for k, v in {"a": a, "b": b, "c": c, "d": d}.items()}
+
+
 def column_tolerance(dtype: np.dtype) -> float:
     """Relative tolerance of a column solve against the float64 oracle.
 

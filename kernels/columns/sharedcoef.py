@@ -18,9 +18,7 @@ from kernels.columns.common import (
     STRIP,
     STRIP_WIDTH,
     column_tolerance,
-    diffusion_coefficients,
-    interface_diffusivity,
-    right_hand_side,
+    field_coefficient_inputs,
     shared_view,
     thomas_reference,
 )
@@ -132,12 +130,7 @@ class SharedCoef(Kernel):
         return {"a": shared, "b": shared, "c": shared, "d": extents}
 
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
-        rng = np.random.default_rng(seed)
-        profile = interface_diffusivity(extents.z).reshape(1, -1, 1, 1)
-        noise = rng.uniform(0.5, 1.5, size=(1, extents.z - 1, extents.y, extents.x))
-        a, b, c = diffusion_coefficients(profile * noise, dt=600.0)
-        d = right_hand_side(extents, seed + 1)
-        return {k: v.astype(dtype) for k, v in {"a": a, "b": b, "c": c, "d": d}.items()}
+        return field_coefficient_inputs(extents, dtype, seed, coefficient_var=1)
 
     def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
         return thomas_reference(logical["a"], logical["b"], logical["c"], logical["d"])
