@@ -11,7 +11,6 @@ import hashlib
 import json
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any
 
 from harness.store import RunStore, RunStoreError
 from kernels.errors import StridewiseError

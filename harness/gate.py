@@ -36,7 +36,7 @@ BASELINE_DIR = Path("results") / "baselines"
 BOOTSTRAP = 400
 #: The environment variable CI systems read as a step's markdown summary.
 STEP_SUMMARY_ENV = "GITHUB_STEP_SUMMARY"
-EXIT_PASS, EXIT_REGRESSION, EXIT_UNUSABLE = 0, 1, 2
+EXIT_PASS, EXIT_REGRESSION = 0, 1  # unusable input raises GateError: exit 2 through the CLI
 FINGERPRINT_FIELDS = ("cpu_model", "logical_cpus", "physical_cores", "usable_cores", "memory_bytes", "numa_nodes", "numba", "numpy", "python")
 
 

@@ -19,8 +19,9 @@ Definitions (also in the README):
 from __future__ import annotations
 
 import math
+import sys
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -51,7 +52,6 @@ class Runs:
     cases: pd.DataFrame
     samples: pd.DataFrame
     metadata: dict[str, dict[str, Any]]  # machine id -> metadata (the first run seen)
-    imported: list[str] = field(default_factory=list)
 
 
 def load_runs(paths: list[str]) -> Runs:
@@ -64,7 +64,7 @@ def load_runs(paths: list[str]) -> Runs:
             warnings.simplefilter("always")
             cases, samples = store.cases(), store.samples()
         for w in caught:
-            print(f"stridewise: warning: {w.message}", file=__import__("sys").stderr)
+            print(f"stridewise: warning: {w.message}", file=sys.stderr)
         if cases.empty:
             raise RunStoreError(f"{path} holds no cases")
         cases = cases.assign(machine=machine, run=str(path))
@@ -208,12 +208,12 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
         raise StridewiseError("no successful kernel cases to rank in the given run directories")
     table = pd.concat(tables, ignore_index=True)
     table = table[GROUP_KEYS + [c for c in table.columns if c not in GROUP_KEYS]]
-    scaling, flips = _scaling(table, cases, runs.samples)
+    scaling, flips = _scaling(table, cases)
     failed = cases[(cases["status"] != "ok") & (cases["kernel"] != "triad")]
     return Ranking(table, scaling, flips, _mix(table, cases, runs, options), _machine_diffs(table), failed, runs, options)
 
 
-def _scaling(table: pd.DataFrame, cases: pd.DataFrame, samples: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
+def _scaling(table: pd.DataFrame, cases: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
     """Per layout and thread count: speedup over the same (threaded) build at 1 thread, parallel
     efficiency, and the ratio to the best single-threaded (parallel=False) build."""
     rows, flips = [], []

@@ -12,7 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from kernels.errors import StridewiseError
-from kernels.grid import SUPPORTED_DTYPES, Extents, check_dtype
+from kernels.grid import Extents, check_dtype
 from kernels.layout import Layout, parse_layout, parse_tile_sizes, paddings, permutations, tilings
 
 BUILTIN_SUITES = ("default", "quick")

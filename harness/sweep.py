@@ -7,7 +7,7 @@ import os
 import queue as queue_module
 import signal
 import sys
-import time
+import tomllib
 from collections import defaultdict
 from contextlib import contextmanager
 from datetime import datetime, timezone
@@ -96,7 +96,7 @@ def run_sweep(
         store = RunStore(Path(resume))
         old = store.metadata()
         suite_text = store.suite_text()
-        suite = parse_suite(__import__("tomllib").loads(suite_text), old.get("suite", {}).get("name", "resumed"))
+        suite = parse_suite(tomllib.loads(suite_text), old.get("suite", {}).get("name", "resumed"))
         if suite_arg is not None:
             given = load_suite(suite_arg)
             if given.digest() != suite.digest():

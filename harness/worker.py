@@ -60,6 +60,7 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
     from threadpoolctl import threadpool_info, threadpool_limits
 
     from harness.roof import measure_curve
+    from harness.timing import Interrupted
     from kernels.parallel import FILL, evict_caches
 
     threadpool_limits(limits=1, user_api="blas")  # other libraries' pools cannot oversubscribe
@@ -90,9 +91,7 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
     flush = None
     if plan.timing.cold_cache:
         flush_buf = np.zeros(plan.flush_bytes // 8, dtype=np.int64)
-
-        def flush() -> None:
-            evict_caches(flush_buf)
+        flush = lambda: evict_caches(flush_buf)  # noqa: E731
 
     seen_reports: dict[str, dict[str, Any]] = {}
     for group in plan.groups:
@@ -101,14 +100,10 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
         queue.put(("start", group.label))
         try:
             result = _run_group(group, plan, stop, flush, seen_reports, queue)
-        except _Stopped:
+        except Interrupted:
             queue.put(("interrupted", group.label))
             break
         queue.put(("group", result))
-
-
-class _Stopped(Exception):
-    pass
 
 
 def _schedule(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:
@@ -125,7 +120,7 @@ def _schedule(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], 
 def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, queue: Any) -> dict[str, Any]:
     import numpy as np
 
-    from harness.timing import Interrupted, overhead_ns, sample_rounds
+    from harness.timing import overhead_ns, sample_rounds
     from kernels.base import Bound
     from kernels.grid import Extents
     from kernels.jit import ensure_compiled, vector_report
@@ -212,18 +207,15 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
                 rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
     _add_roof_probes(group, records, calls)
     seed = f"{plan.seed}:{group.label}"
-    try:
-        sampled = sample_rounds(
-            dict(calls),
-            plan.timing,
-            random.Random(seed),
-            stop.is_set,
-            before_sample=flush,
-            on_round=lambda r: queue.put(("round", r)),
-            prepare=prepare,
-        )
-    except Interrupted:
-        raise _Stopped from None
+    sampled = sample_rounds(  # raises Interrupted on stop
+        dict(calls),
+        plan.timing,
+        random.Random(seed),
+        stop.is_set,
+        before_sample=flush,
+        on_round=lambda r: queue.put(("round", r)),
+        prepare=prepare,
+    )
     return {
         "group": group.label,
         "threads": group.threads,

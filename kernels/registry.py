@@ -25,11 +25,6 @@ def register(kernel: Kernel) -> Kernel:
     return kernel
 
 
-def unregister(name: str) -> None:
-    """Remove a kernel (used by tests that register deliberately broken ones)."""
-    _REGISTRY.pop(name, None)
-
-
 #: Environment variable naming extra kernel modules (comma separated) to import and register.
 EXTRA_MODULES_ENV = "STRIDEWISE_KERNEL_MODULES"
 

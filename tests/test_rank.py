@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from harness.rank import RankOptions, Runs, load_runs, rank_group, rank_runs, tiers
+from harness.rank import RankOptions, Runs, rank_group, rank_runs, tiers
 from harness.report import render, render_markdown
 from harness.store import CASE_COLUMNS, SAMPLE_COLUMNS
 

@@ -17,7 +17,7 @@ import numpy as np
 
 from kernels.base import Schedule
 from kernels.grid import Extents
-from kernels.layout import TILES, WITHIN
+from kernels.layout import TILES
 from kernels.state import State
 
 NDIM = 6  # rows are walked as a 6-axis nest (axes of count 1 pad shorter layouts)
