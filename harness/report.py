@@ -147,13 +147,15 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
         out.append(tabulate(r.machine_diffs.values.tolist(), headers=list(map(str, r.machine_diffs.columns)), tablefmt="github"))
         out.append("")
     if not r.failed.empty:
-        out += ["## Failed cases", ""]
-        rows = [[f["machine"], f["kernel"], f["schedule"], f["build"], f["layout"], f["dtype"], f["threads"], f["status"], f["message"]]
-                for _, f in r.failed.iterrows()]
-        out.append(tabulate(rows, headers=["machine", "kernel", "schedule", "build", "layout", "dtype", "threads", "status", "message"],
-                            tablefmt="github"))
-        out.append("")
+        out += failed_section(r.failed)
     return "\n".join(out)
+
+
+def failed_section(failed: pd.DataFrame) -> list[str]:
+    """Markdown lines listing cases that failed validation or raised (with a machine column when known)."""
+    columns = [c for c in ("machine", "kernel", "schedule", "build", "layout", "dtype", "threads", "status", "message") if c in failed]
+    rows = [[f[c] for c in columns] for _, f in failed.iterrows()]
+    return ["## Failed cases", "", tabulate(rows, headers=columns, tablefmt="github"), ""]
 
 
 EXPORT_COLUMNS = [

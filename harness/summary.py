@@ -97,9 +97,7 @@ def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
         lines.append("")
     bad = cases[cases["status"] != "ok"] if len(cases) else cases
     if len(bad):
-        lines.append("## Failed cases")
-        lines.append("")
-        rows = [[r["kernel"], r["schedule"], r["build"], r["layout"], r["dtype"], r["threads"], r["status"], r["message"]] for _, r in bad.iterrows()]
-        lines.append(tabulate(rows, headers=["kernel", "schedule", "build", "layout", "dtype", "threads", "status", "message"], tablefmt="github"))
-        lines.append("")
+        from harness.report import failed_section
+
+        lines += failed_section(bad)
     return "\n".join(lines)
