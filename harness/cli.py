@@ -29,10 +29,10 @@ def build_parser() -> argparse.ArgumentParser:
     sweep_p = sub.add_parser(
         "sweep",
         help="run a suite: every case validated, then timed; results in a run directory",
-        description="Run a suite (a TOML file, or the built-in 'default' / 'quick') and write a run directory.",
+        description="Run a suite (a TOML file, or the built-in 'default' / 'smoke') and write a run directory.",
     )
     sweep_p.add_argument("suite", nargs="?", default=None, help="suite file or built-in name (default: the built-in default suite)")
-    sweep_p.add_argument("--quick", action="store_true", help="run the tiny built-in smoke suite")
+    sweep_p.add_argument("--smoke", action="store_true", help="run the tiny built-in smoke suite (seconds, for CI and first checks)")
     sweep_p.add_argument("--out", help="run directory to create (default: results/runs/<time>-<suite>-<machine>)")
     sweep_p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted run, skipping finished cases")
     sweep_p.add_argument("--quiet", action="store_true", help="no progress bar (for CI logs)")
@@ -73,7 +73,7 @@ def build_parser() -> argparse.ArgumentParser:
     save_p = base_sub.add_parser("save", help="merge several runs into results/baselines/<machine-id>.json")
     save_p.add_argument("runs", nargs="+", metavar="RUN_DIR")
     save_p.add_argument("--out", help="baseline file to write (default: results/baselines/<machine-id>.json)")
-    save_p.add_argument("--min-runs", type=int, default=3, help="fewest runs accepted (default 3)")
+    save_p.add_argument("--at-least", type=int, default=3, metavar="N", help="refuse fewer than N runs (default 3)")
     save_p.set_defaults(func=_baseline_save)
     imp_p = sub.add_parser("import-bench", help="import a pytest-benchmark JSON file as a run directory")
     imp_p.add_argument("file")
@@ -99,7 +99,7 @@ def _gate(args: argparse.Namespace) -> int:
 def _baseline_save(args: argparse.Namespace) -> int:
     from harness.gate import save_baseline
 
-    path = save_baseline(args.runs, args.out, args.min_runs)
+    path = save_baseline(args.runs, args.out, args.at_least)
     print(f"stridewise: baseline of {len(args.runs)} runs written to {path}", file=sys.stderr)
     return 0
 
@@ -154,9 +154,9 @@ def _rank(args: argparse.Namespace) -> int:
 def _sweep(args: argparse.Namespace) -> int:
     from harness.sweep import run_sweep
 
-    if args.quick and args.suite:
-        raise StridewiseError("give either a suite or --quick, not both")
-    return run_sweep("quick" if args.quick else args.suite, args.out, args.resume, args.quiet, args.no_vector_report)
+    if args.smoke and args.suite:
+        raise StridewiseError("give either a suite or --smoke, not both")
+    return run_sweep("smoke" if args.smoke else args.suite, args.out, args.resume, args.quiet, args.no_vector_report)
 
 
 def _roof(args: argparse.Namespace) -> int:

@@ -79,11 +79,11 @@ def run_case_stats(run_dir: str) -> tuple[dict[str, dict[str, Any]], dict[str, A
     return out, meta
 
 
-def save_baseline(run_dirs: list[str], out: str | None, min_runs: int = 3) -> Path:
+def save_baseline(run_dirs: list[str], out: str | None, at_least: int = 3) -> Path:
     """Merge several runs of one suite on one machine into a compact baseline file."""
-    if len(run_dirs) < min_runs:
-        raise GateError(f"a baseline needs at least {min_runs} runs (between-run variation), got {len(run_dirs)}; "
-                        "run the suite again or lower --min-runs")
+    if len(run_dirs) < at_least:
+        raise GateError(f"a baseline needs at least {at_least} runs (between-run variation), got {len(run_dirs)}; "
+                        "run the suite again or lower --at-least")
     per_run, metas = [], []
     for rd in run_dirs:
         stats_, meta = run_case_stats(rd)

@@ -6,7 +6,17 @@ import argparse
 
 from harness.tables import FORMATS, render
 from kernels.grid import SUPPORTED_DTYPES, Extents
-from kernels.layout import Layout, parse_layout, parse_tile_sizes, paddings, permutations, tilings
+from kernels.layout import (
+    TILING_ORDER,
+    TILING_SIZES,
+    Layout,
+    format_tile_sizes,
+    paddings,
+    parse_layout,
+    parse_tile_sizes,
+    permutations,
+    tilings,
+)
 
 FAMILIES = ("permutations", "tilings", "paddings")
 
@@ -22,8 +32,12 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--dtype", default="float64", help=f"element type: {', '.join(SUPPORTED_DTYPES)}")
     p.add_argument("--layout", action="append", default=[], metavar="SPEC", help="a layout spec (repeatable)")
     p.add_argument("--family", choices=FAMILIES, help="a family of layouts (default: permutations)")
-    p.add_argument("--tiles", default="4x8,8x8", help="tilings: tile sizes YxX, comma separated")
-    p.add_argument("--order", default="Y.X.var.z.y.x", help="tilings: token order of the tiled layouts")
+    p.add_argument("--tiles", default=format_tile_sizes(TILING_SIZES), help="tilings: tile sizes YxX, comma separated")
+    p.add_argument(
+        "--order",
+        default=TILING_ORDER,
+        help="tilings: part order without sizes (y/ x/ tile index, y%% x%% position in a tile), e.g. %(default)s",
+    )
     p.add_argument("--base", default="var.z.y.x", help="paddings: layout to pad")
     p.add_argument("--pads", default="0,1,8", help="paddings: pads to apply, comma separated")
     p.add_argument("--pad-token", default=None, help="paddings: token to pad (default: innermost)")

@@ -29,8 +29,9 @@ def _headline(kernel: str, family: str, threads: int, grp: pd.DataFrame) -> str:
         return f"At {threads} thread(s), only `{best['layout']}` ran for {what}."
     ratio = worst["median_ns"] / best["median_ns"]
     tied = grp[grp["tier"] == best["tier"]]["layout"].tolist() if pd.notna(best["tier"]) else [best["layout"]]
-    tail = f" (tied in tier 1 with {', '.join(f'`{t}`' for t in tied[1:])})" if len(tied) > 1 else ""
-    return f"At {threads} thread(s), `{best['layout']}` is {ratio:.1f}x faster than `{worst['layout']}` for {what}{tail}."
+    tail = f" Tier 1 also holds {', '.join(f'`{t}`' for t in tied[1:])}." if len(tied) > 1 else ""
+    return (f"At {threads} thread(s), `{best['layout']}` runs best for {what}; the slowest layout, "
+            f"`{worst['layout']}`, takes {ratio:.1f}x as long.{tail}")
 
 
 def _power_note(grp: pd.DataFrame, alpha: float) -> str | None:

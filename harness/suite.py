@@ -13,9 +13,19 @@ from typing import Any
 
 from kernels.errors import StridewiseError
 from kernels.grid import Extents, check_dtype
-from kernels.layout import Layout, parse_layout, parse_tile_sizes, paddings, permutations, tilings
+from kernels.layout import (
+    TILING_ORDER,
+    TILING_SIZES,
+    Layout,
+    format_tile_sizes,
+    paddings,
+    parse_layout,
+    parse_tile_sizes,
+    permutations,
+    tilings,
+)
 
-BUILTIN_SUITES = ("default", "quick")
+BUILTIN_SUITES = ("default", "smoke")
 THREADING_LAYERS = ("default", "omp", "tbb", "workqueue")
 
 
@@ -132,8 +142,8 @@ def _layouts(section: dict[str, Any]) -> tuple[str, ...]:
         if kind == "permutations":
             out += permutations()
         elif kind == "tilings":
-            tiles = [_expect(t, str, f"{where}.tiles item") for t in _expect(fam.get("tiles", ["8x8"]), list, f"{where}.tiles")]
-            out += tilings(parse_tile_sizes(",".join(tiles)), _expect(fam.get("order", "Y.X.var.z.y.x"), str, f"{where}.order"))
+            tiles = [_expect(t, str, f"{where}.tiles item") for t in _expect(fam.get("tiles", format_tile_sizes(TILING_SIZES).split(",")), list, f"{where}.tiles")]
+            out += tilings(parse_tile_sizes(",".join(tiles)), _expect(fam.get("order", TILING_ORDER), str, f"{where}.order"))
         else:
             pads = [_expect(p, int, f"{where}.pads item") for p in _expect(fam.get("pads", [0, 1, 8]), list, f"{where}.pads")]
             token = fam.get("token")

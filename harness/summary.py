@@ -74,8 +74,8 @@ def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
         lines.append("")
         if len(grp) > 1:
             lines.append(
-                f"`{best['layout']}` ({best['schedule']}, {best['build']}) is {worst['median_ns'] / best['median_ns']:.1f}x "
-                f"faster than `{worst['layout']}` ({worst['schedule']}, {worst['build']})."
+                f"`{best['layout']}` ({best['schedule']}, {best['build']}) runs best; the slowest, `{worst['layout']}` "
+                f"({worst['schedule']}, {worst['build']}), takes {worst['median_ns'] / best['median_ns']:.1f}x as long."
             )
             lines.append("")
         rows = []

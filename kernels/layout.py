@@ -3,12 +3,15 @@
 Spec grammar (outermost token first, joined by ``.``, optional ``@N`` base offset)::
 
     spec    := token ("." token)* ["@" bytes]
-    token   := name [size] ["+" pad]
-    name    := "var" | "z" | "y" | "x"   a whole logical axis
-             | "Y" | "X"                 tile index of a tiled horizontal axis
-    size    := digits                    on "y"/"x": position inside a tile of that size
+    token   := axis [part] ["+" pad]
+    axis    := "var" | "z" | "y" | "x"   a whole logical axis
+    part    := "/" size                  on y or x: the tile index, for tiles of ``size``
+             | "%" size                  on y or x: the position inside a tile of ``size``
 
-Examples: ``var.z.y.x``, ``y.x.z.var``, ``Y.X.var.z.y4.x8``, ``var.z.y+1.x+8``,
+Tiling is written as index arithmetic on the logical index: ``y/4`` runs over ``j // 4`` and
+``y%4`` over ``j % 4``; both parts of a tiled axis appear, with the same size.
+
+Examples: ``var.z.y.x``, ``y.x.z.var``, ``y/4.x/8.var.z.y%4.x%8``, ``var.z.y+1.x+8``,
 ``var.z.y.x@128`` (buffer starts 128 bytes past a 64-byte boundary).
 """
 
@@ -29,8 +32,10 @@ from kernels.grid import HORIZONTAL_AXES, LOGICAL_AXES, Extents, check_dtype
 ALIGNMENT = 64
 
 WHOLE, TILES, WITHIN = "whole", "tiles", "within"
-_TOKEN_RE = re.compile(r"^(?P<name>[A-Za-z]+)(?P<size>\d*)(?:(?P<plus>\+)(?P<pad>.*))?$")
-_VALID_NAMES = "var, z, y, x, Y, X (tile index), yN, xN (position in a tile of N)"
+_TOKEN_RE = re.compile(r"^(?P<name>[A-Za-z]+)(?P<digits>\d*)(?:(?P<op>[/%])(?P<size>[^+]*))?(?:(?P<plus>\+)(?P<pad>.*))?$")
+_VALID_NAMES = "var, z, y, x, y/N and x/N (tile index), y%N and x%N (position in a tile of N)"
+_OP = {TILES: "/", WITHIN: "%"}
+_FILE_SAFE = str.maketrans({"/": "d", "%": "m", "+": "p", "@": "o"})
 
 
 @dataclass(frozen=True)
@@ -45,12 +50,7 @@ class Token:
     @property
     def text(self) -> str:
         """Canonical spec text of this token."""
-        if self.part == TILES:
-            name = self.axis.upper()
-        elif self.part == WITHIN:
-            name = f"{self.axis}{self.tile}"
-        else:
-            name = self.axis
+        name = f"{self.axis}{_OP[self.part]}{self.tile}" if self.part in _OP else self.axis
         return f"{name}+{self.pad}" if self.pad else name
 
     def count(self, extents: Extents) -> int:
@@ -104,6 +104,14 @@ class Layout:
 
     def __str__(self) -> str:
         return self.spec
+
+    @property
+    def file_stem(self) -> str:
+        """The spec as a file-name part: ``/`` becomes ``d``, ``%`` ``m``, ``+`` ``p``, ``@`` ``o``.
+
+        Injective on canonical specs (those letters never follow a digit or ``.`` there).
+        """
+        return self.spec.translate(_FILE_SAFE)
 
     def __repr__(self) -> str:
         return f"Layout('{self.spec}')"
@@ -230,7 +238,7 @@ def _validate(tokens: tuple[Token, ...], base_offset: int) -> None:
             raise LayoutError(f"negative pad {tok.pad} on token '{tok.axis}'; pads are >= 0")
         if tok.part != WHOLE and tok.axis not in HORIZONTAL_AXES:
             raise LayoutError(f"axis '{tok.axis}' cannot be tiled; only y and x can")
-        if tok.part == WITHIN and tok.tile <= 0:
+        if tok.part != WHOLE and tok.tile <= 0:
             raise LayoutError(f"tile size of '{tok.text}' must be positive")
         key = (tok.axis, tok.part)
         if key in seen:
@@ -241,14 +249,16 @@ def _validate(tokens: tuple[Token, ...], base_offset: int) -> None:
         if not parts:
             raise LayoutError(f"layout is missing axis '{axis}'; a layout names each of var, z, y, x once")
         if WHOLE in parts and len(parts) > 1:
-            raise LayoutError(f"axis '{axis}' appears both whole and tiled; use '{axis}' or '{axis.upper()}' with '{axis}N'")
+            raise LayoutError(f"axis '{axis}' appears both whole and tiled; use '{axis}' or both '{axis}/N' and '{axis}%N'")
         if parts == {TILES}:
-            raise LayoutError(f"tile index '{axis.upper()}' has no partner '{axis}N' giving the tile size")
+            tile = seen[(axis, TILES)].tile
+            raise LayoutError(f"tile index '{axis}/{tile}' has no partner '{axis}%{tile}' (position in the tile)")
         if parts == {WITHIN}:
             tile = seen[(axis, WITHIN)].tile
-            raise LayoutError(f"tile part '{axis}{tile}' has no partner tile index '{axis.upper()}'")
+            raise LayoutError(f"tile position '{axis}%{tile}' has no partner '{axis}/{tile}' (tile index)")
         if parts == {TILES, WITHIN} and seen[(axis, TILES)].tile != seen[(axis, WITHIN)].tile:
-            raise LayoutError(f"tile index '{axis.upper()}' and '{axis}N' disagree on the tile size")
+            a, b = seen[(axis, TILES)].tile, seen[(axis, WITHIN)].tile
+            raise LayoutError(f"'{axis}/{a}' and '{axis}%{b}' disagree on the tile size; both parts take the same N")
 
 
 def parse_layout(spec: str) -> Layout:
@@ -262,39 +272,37 @@ def parse_layout(spec: str) -> Layout:
         if not offset_text.isdigit():
             raise LayoutError(f"base offset '@{offset_text}' in '{text}' must be a non-negative integer of bytes")
         base_offset = int(offset_text)
-    raw: list[tuple[str, str, int, int]] = []
-    for piece in body.split("."):
-        m = _TOKEN_RE.match(piece)
-        if not m:
-            raise LayoutError(f"bad token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}, each optionally +PAD")
-        name, size, plus, pad_text = m["name"], m["size"], m["plus"], m["pad"]
-        pad = 0
-        if plus:
-            if not re.fullmatch(r"-?\d+", pad_text or ""):
-                raise LayoutError(f"bad pad in token '{piece}'; write +N with N a non-negative integer")
-            pad = int(pad_text)
-            if pad < 0:
-                raise LayoutError(f"negative pad in token '{piece}'; pads are >= 0")
-        if name in ("Y", "X"):
-            if size:
-                raise LayoutError(f"tile index '{name}' takes no size in '{piece}'; put it on '{name.lower()}{size}'")
-            raw.append((name.lower(), TILES, 0, pad))
-        elif name in LOGICAL_AXES:
-            if size:
-                if name not in HORIZONTAL_AXES:
-                    raise LayoutError(f"axis '{name}' cannot be tiled (token '{piece}'); only y and x can")
-                if int(size) <= 0:
-                    raise LayoutError(f"tile size in '{piece}' must be positive")
-                raw.append((name, WITHIN, int(size), pad))
-            else:
-                raw.append((name, WHOLE, 0, pad))
-        else:
-            raise LayoutError(f"unknown token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}")
-    sizes = {axis: tile for axis, part, tile, _ in raw if part == WITHIN}
-    tokens = tuple(
-        Token(axis, part, sizes.get(axis, 0) if part == TILES else tile, pad) for axis, part, tile, pad in raw
-    )
+    tokens = tuple(_parse_token(piece, text) for piece in body.split("."))
     return Layout(tokens, base_offset)
+
+
+def _parse_token(piece: str, text: str) -> Token:
+    m = _TOKEN_RE.match(piece)
+    if not m:
+        raise LayoutError(f"bad token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}, each optionally +PAD")
+    name, op, size_text = m["name"], m["op"], m["size"]
+    if name in ("Y", "X") or (m["digits"] and name in HORIZONTAL_AXES):
+        axis = name.lower()
+        raise LayoutError(
+            f"token '{piece}' in '{text}' uses an unsupported tiling form; write a tiled axis as "
+            f"'{axis}/N' (tile index) and '{axis}%N' (position in the tile), e.g. y/8.x/16.var.z.y%8.x%16"
+        )
+    if name not in LOGICAL_AXES or m["digits"]:
+        raise LayoutError(f"unknown token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}")
+    pad = 0
+    if m["plus"]:
+        if not re.fullmatch(r"-?\d+", m["pad"] or ""):
+            raise LayoutError(f"bad pad in token '{piece}'; write +N with N a non-negative integer")
+        pad = int(m["pad"])
+        if pad < 0:
+            raise LayoutError(f"negative pad in token '{piece}'; pads are >= 0")
+    if not op:
+        return Token(name, WHOLE, 0, pad)
+    if name not in HORIZONTAL_AXES:
+        raise LayoutError(f"axis '{name}' cannot be tiled (token '{piece}'); only y and x can")
+    if not size_text.isdigit() or int(size_text) <= 0:
+        raise LayoutError(f"tile size in '{piece}' must be a positive integer, e.g. {name}{op}8")
+    return Token(name, TILES if op == "/" else WITHIN, int(size_text), pad)
 
 
 def as_layout(layout: Layout | str) -> Layout:
@@ -308,15 +316,29 @@ def permutations() -> list[Layout]:
     return [Layout(tuple(Token(a) for a in order)) for order in itertools.permutations(LOGICAL_AXES)]
 
 
-def tilings(tiles: Iterable[tuple[int, int]], order: str = "Y.X.var.z.y.x") -> list[Layout]:
-    """Tiled layouts over tile sizes ``(ty, tx)``; ``order`` places Y, X (tile index) and y, x (in tile)."""
+#: Default token order of the tilings family: tiles outermost, each tile holding every level of
+#: every variable. One default for suites and ``stridewise layouts`` alike.
+TILING_ORDER = "y/.x/.var.z.y%.x%"
+#: Default tile sizes (y, x) of the tilings family.
+TILING_SIZES = ((4, 8), (8, 8))
+
+
+def tilings(tiles: Iterable[tuple[int, int]], order: str = TILING_ORDER) -> list[Layout]:
+    """Tiled layouts over tile sizes ``(ty, tx)``.
+
+    ``order`` places the six parts, sizes left out: ``y/`` and ``x/`` (tile index), ``y%`` and
+    ``x%`` (position in a tile), ``var`` and ``z``; any part may carry ``+PAD``.
+    """
     template = order.split(".")
-    if sorted(t.rstrip("+0123456789") for t in template) != sorted(["Y", "X", "var", "z", "y", "x"]):
-        raise LayoutError(f"tiling order '{order}' must name Y, X, var, z, y, x once each, e.g. Y.X.var.z.y.x")
+    bare = sorted(t.split("+")[0] for t in template)
+    if bare != sorted(["y/", "x/", "y%", "x%", "var", "z"]):
+        raise LayoutError(f"tiling order '{order}' must name y/, x/, var, z, y%, x% once each, e.g. {TILING_ORDER}")
     out = []
     for ty, tx in tiles:
         size = {"y": ty, "x": tx}
-        spec = ".".join(f"{t[0]}{size[t[0]]}{t[1:]}" if t[0] in size else t for t in template)
+        spec = ".".join(
+            f"{t[:2]}{size[t[0]]}{t[2:]}" if t[0] in size and t[1:2] in ("/", "%") else t for t in template
+        )
         out.append(parse_layout(spec))
     return out
 
@@ -337,6 +359,11 @@ def paddings(base: Layout | str, pads: Sequence[int], token: str | None = None) 
         toks[pos] = Token(toks[pos].axis, toks[pos].part, toks[pos].tile, pad)
         out.append(Layout(tuple(toks), base.base_offset))
     return out
+
+
+def format_tile_sizes(tiles: Iterable[tuple[int, int]]) -> str:
+    """Inverse of ``parse_tile_sizes``: ``[(4, 8)]`` -> ``"4x8"``."""
+    return ",".join(f"{ty}x{tx}" for ty, tx in tiles)
 
 
 def parse_tile_sizes(text: str) -> list[tuple[int, int]]:

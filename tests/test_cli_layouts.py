@@ -12,7 +12,7 @@ import pytest
 
 from harness.cli import main
 from kernels.grid import Extents
-from kernels.layout import parse_layout
+from kernels.state import State
 
 
 def _run(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]:
@@ -21,20 +21,22 @@ def _run(capsys: pytest.CaptureFixture[str], *argv: str) -> tuple[int, str, str]
     return code, out, err
 
 
-def test_csv_lists_every_permutation_with_numpy_strides(capsys: pytest.CaptureFixture[str]) -> None:
-    code, out, _ = _run(capsys, "layouts", "--grid", "var=2,z=3,y=4,x=8", "--format", "csv")
+@pytest.mark.parametrize("family", ["permutations", "tilings", "paddings"])
+def test_csv_strides_are_numpys_own(capsys: pytest.CaptureFixture[str], family: str) -> None:
+    """Source: numpy.ndarray.strides of the buffer a State allocates for each listed layout."""
+    code, out, _ = _run(capsys, "layouts", "--family", family, "--grid", "var=2,z=3,y=8,x=8", "--format", "csv")
     assert code == 0
     table = pd.read_csv(io.StringIO(out))
-    assert len(table) == 24
-    ext = Extents(2, 3, 4, 8)
+    assert len(table) == {"permutations": 24, "tilings": 2, "paddings": 3}[family]
+    ext = Extents(2, 3, 8, 8)
     for spec, strides in zip(table["layout"], table["strides_bytes"]):
-        assert tuple(int(s) for s in strides.split("×")) == parse_layout(spec).strides(ext, "float64")
+        assert tuple(int(s) for s in strides.split("×")) == State.zeros(spec, ext, "float64").data.strides
 
 
 def test_json_and_md(capsys: pytest.CaptureFixture[str]) -> None:
     code, out, _ = _run(capsys, "layouts", "--family", "tilings", "--tiles", "2x4", "--grid", "var=1,z=2,y=4,x=8", "--format", "json")
     rows = json.loads(out)
-    assert code == 0 and rows[0]["layout"] == "Y.X.var.z.y2.x4" and rows[0]["shape"] == [2, 2, 1, 2, 2, 4]
+    assert code == 0 and rows[0]["layout"] == "y/2.x/4.var.z.y%2.x%4" and rows[0]["shape"] == [2, 2, 1, 2, 2, 4]
     code, out, _ = _run(capsys, "layouts", "--layout", "var.z.y+1.x+8", "--format", "md")
     assert code == 0 and out.startswith("| layout") and "var.z.y+1.x+8" in out
 

@@ -23,7 +23,7 @@ def test_readme_suite_example_is_a_valid_suite() -> None:
     assert suite.conversions_auto == 2
 
 
-@pytest.mark.parametrize("path", sorted((ROOT / "docs" / "suites").glob("*.toml")) + ["default", "quick"])
+@pytest.mark.parametrize("path", sorted((ROOT / "docs" / "suites").glob("*.toml")) + ["default", "smoke"])
 def test_shipped_suites_load(path: Path | str) -> None:
     suite = load_suite(str(path))
     assert suite.layouts and suite.kernels and suite.sizes

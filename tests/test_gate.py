@@ -150,11 +150,11 @@ def test_a_deliberately_slowed_schedule_fails_the_gate_on_real_timings(tmp_path:
 
 
 @pytest.mark.slow
-def test_normalised_mode_against_quick_runs(tmp_path: Path) -> None:
+def test_normalised_mode_against_smoke_runs(tmp_path: Path) -> None:
     runs = []
     for i in range(3):
         out = tmp_path / f"b{i}"
-        assert _cli("sweep", "--quick", "--quiet", "--out", str(out)).returncode == 0
+        assert _cli("sweep", "--smoke", "--quiet", "--out", str(out)).returncode == 0
         runs.append(str(out))
     saved = _cli("baseline", "save", *runs, cwd=tmp_path)  # default path, relative to the working directory
     assert saved.returncode == 0, saved.stderr
@@ -168,15 +168,15 @@ def test_normalised_mode_against_quick_runs(tmp_path: Path) -> None:
 
 
 @pytest.fixture(scope="module")
-def quick_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
+def smoke_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
     out = tmp_path_factory.mktemp("gate") / "run"
-    assert _cli("sweep", "--quick", "--quiet", "--out", str(out)).returncode == 0
+    assert _cli("sweep", "--smoke", "--quiet", "--out", str(out)).returncode == 0
     return out
 
 
 @pytest.mark.slow
-def test_bad_gate_input_exits_2(tmp_path: Path, quick_run: Path) -> None:
-    run = quick_run
+def test_bad_gate_input_exits_2(tmp_path: Path, smoke_run: Path) -> None:
+    run = smoke_run
     corrupted = tmp_path / "corrupt.json"
     corrupted.write_text('{"format": "stridewise-baseline", "cases": {"x": {"medians_ns": ')
     proc = _cli("gate", str(corrupted), str(run))
@@ -205,8 +205,12 @@ def test_bad_gate_input_exits_2(tmp_path: Path, quick_run: Path) -> None:
 @pytest.mark.slow
 def test_pytest_benchmark_json_imports_ranks_and_is_refused_by_the_gate_without_data(tmp_path: Path) -> None:
     """--benchmark-json keeps every round's time; a --benchmark-save file keeps them only with
-    --benchmark-save-data. Both import; only the one with raw samples can be gated."""
-    common = [sys.executable, "-m", "pytest", "-q", "tests/bench/test_bench_kernels.py", "-k", "laplacian and not y8",
+    --benchmark-save-data. Both import; only the one with raw samples can be gated.
+
+    Source: pytest-benchmark 5.3.1 (installed here), whose saved JSON holds a ``stats.data`` list of
+    round times only when asked for raw data; this test makes both files with that plugin.
+    """
+    common = [sys.executable, "-m", "pytest", "-q", "tests/bench/test_bench_kernels.py", "-k", "laplacian and not yd8",
               "--benchmark-enable", "--benchmark-min-rounds=5", "-p", "no:cacheprovider"]
     with_data = tmp_path / "with.json"
     assert subprocess.run([*common, f"--benchmark-json={with_data}"], cwd=ROOT, capture_output=True, text=True).returncode == 0

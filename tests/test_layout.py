@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pytest
 from hypothesis import given
@@ -24,7 +26,7 @@ def test_parse_print_round_trip(data: st.DataObject) -> None:
 
 @pytest.mark.parametrize(
     "spec, canonical",
-    [("var.z.y.x", "var.z.y.x"), (" y.x.z.var ", "y.x.z.var"), ("var.z.y+0.x+8", "var.z.y.x+8"), ("Y.X.var.z.y4.x8@0", "Y.X.var.z.y4.x8")],
+    [("var.z.y.x", "var.z.y.x"), (" y.x.z.var ", "y.x.z.var"), ("var.z.y+0.x+8", "var.z.y.x+8"), ("y/4.x/8.var.z.y%4.x%8@0", "y/4.x/8.var.z.y%4.x%8")],
 )
 def test_canonical_form(spec: str, canonical: str) -> None:
     assert parse_layout(spec).spec == canonical
@@ -35,7 +37,7 @@ def test_families() -> None:
     assert len(perms) == 24 and len(set(perms)) == 24
     assert all(p.is_plain for p in perms)
     tiled = tilings([(4, 8), (8, 8)])
-    assert [t.spec for t in tiled] == ["Y.X.var.z.y4.x8", "Y.X.var.z.y8.x8"]
+    assert [t.spec for t in tiled] == ["y/4.x/8.var.z.y%4.x%8", "y/8.x/8.var.z.y%8.x%8"]
     assert tiled[0].tiles == {"y": 4, "x": 8}
     padded = paddings("var.z.y.x", [0, 1, 8])
     assert [p.spec for p in padded] == ["var.z.y.x", "var.z.y.x+1", "var.z.y.x+8"]
@@ -44,7 +46,11 @@ def test_families() -> None:
 
 
 def test_level_stride_aliasing_needs_outer_padding() -> None:
-    """The design's example: x=128+8, y=128, float64 still has a level stride of 34 x 4 KiB."""
+    """The design's example: x=128+8, y=128, float64 still has a level stride of 34 x 4 KiB.
+
+    Common practice: strides that are multiples of 4 KiB map to the same cache sets (set aliasing);
+    the arithmetic here is (128 + 8) x 128 x 8 bytes = 139264 = 34 x 4096.
+    """
     ext = Extents(var=1, z=4, y=128, x=128)
     inner_only = parse_layout("var.z.y.x+8").strides(ext, "float64")
     assert inner_only[1] == 34 * 4096
@@ -55,7 +61,10 @@ def test_level_stride_aliasing_needs_outer_padding() -> None:
 @given(st.data())
 def test_offsets_match_numpy(data: st.DataObject) -> None:
     """NumPy is the reference: the byte offset of (v, k, j, i) computed by the layout equals the
-    offset NumPy's own strides give for the same element of the physical array."""
+    offset NumPy's own strides give for the same element of the physical array.
+
+    Source: numpy.ndarray.strides of the allocated buffer (NumPy 2.4).
+    """
     ext = data.draw(extents())
     layout = data.draw(layouts_for(ext))
     dtype = data.draw(st.sampled_from(["float32", "float64"]))
@@ -86,12 +95,15 @@ BAD_SPECS = [
     ("var.z.q.x", "'q'"),  # unknown axis
     ("var.z.y.x.z", "'z'"),  # repeated axis
     ("var.z.y", "'x'"),  # missing axis
-    ("Y.var.z.y.x", "'Y'"),  # tile index without its partner (y whole)
-    ("Y.X.var.z.x8", "'Y'"),  # tile index without partner
-    ("X.var.z.y.x.x8", "'x'"),  # whole and tiled x both
-    ("var.z.y4.X.x8", "'y4'"),  # tile part without tile index
-    ("var.z4.y.x", "'z4'"),  # tiling a vertical axis
-    ("Y4.X.var.z.y4.x8", "'Y4'"),  # size on a tile index
+    ("y/4.var.z.x", "'y/4'"),  # tile index without its partner
+    ("y/4.x/8.var.z.y%4", "'x/8'"),  # tile index without partner
+    ("x/8.var.z.y.x.x%8", "'x'"),  # whole and tiled x both
+    ("var.z.y%4.x/8.x%8", "'y%4'"),  # tile part without tile index
+    ("y/4.x/8.var.z.y%2.x%8", "'y%2'"),  # the two parts disagree on the size
+    ("var.z/4.y.x.z%4", "'z/4'"),  # tiling a vertical axis
+    ("y/0.x.var.z.y%0", "'y/0'"),  # zero tile size
+    ("y/a.x.var.z.y%a", "'y/a'"),  # tile size not a number
+    ("var.z4.y.x", "'z4'"),  # a size glued to an axis name
     ("var.z.y.x+-1", "'x+-1'"),  # negative pad
     ("var.z.y.x+", "'x+'"),  # empty pad
     ("var.z.y.x@-8", "'@-8'"),  # negative base offset
@@ -110,7 +122,7 @@ def test_bad_specs_name_the_token(spec: str, named: str) -> None:
 
 def test_tile_must_divide_extent() -> None:
     with pytest.raises(LayoutError, match=r"tile size 5 does not divide extent 128 of axis 'y'"):
-        parse_layout("Y.X.var.z.y5.x8").shape(Extents(4, 8, 128, 128))
+        parse_layout("y/5.x/8.var.z.y%5.x%8").shape(Extents(4, 8, 128, 128))
 
 
 @pytest.mark.parametrize("axis", ["var", "z", "y", "x"])
@@ -136,8 +148,32 @@ def test_bad_tile_size_text_and_pads() -> None:
         paddings("var.z.y.x", [-1])
     with pytest.raises(LayoutError, match="'q'"):
         paddings("var.z.y.x", [1], token="q")
-    with pytest.raises(LayoutError, match="'Y.var.z.y.x'"):
-        tilings([(4, 4)], order="Y.var.z.y.x")
+    with pytest.raises(LayoutError, match="'y/.var.z.y%.x'"):
+        tilings([(4, 4)], order="y/.var.z.y%.x")
+
+
+@pytest.mark.parametrize("old", ["Y.X.var.z.y8.x16", "y8.x16.var.z.Y.X", "var.z.Y.x.y4"])
+def test_old_tile_notation_names_the_new_one(old: str) -> None:
+    with pytest.raises(LayoutError) as info:
+        parse_layout(old)
+    message = str(info.value)
+    assert "unsupported tiling form" in message and "y/8.x/16.var.z.y%8.x%16" in message and "\n" not in message
+
+
+def test_tilings_order_places_pads_and_parts() -> None:
+    (layout,) = tilings([(2, 4)], order="var.y/.z.x/.y%+1.x%")
+    assert layout.spec == "var.y/2.z.x/4.y%2+1.x%4"
+
+
+@given(st.data())
+def test_file_stem_is_safe_and_one_to_one(data: st.DataObject) -> None:
+    """A spec used in a file name keeps no path separator, wildcard or shell-special character,
+    and two different layouts never share a file stem."""
+    ext = data.draw(extents())
+    a, b = data.draw(layouts_for(ext)), data.draw(layouts_for(ext))
+    for layout in (a, b):
+        assert re.fullmatch(r"[A-Za-z0-9._-]+", layout.file_stem), layout.file_stem
+    assert (a.file_stem == b.file_stem) == (a == b)
 
 
 def test_layout_is_hashable_and_frozen() -> None:

@@ -30,6 +30,8 @@ def test_roof_plot_is_a_png(tmp_path: Path) -> None:
     pytest.importorskip("matplotlib")
     from harness.plots import plot_roof
 
+    """Source: the PNG specification (W3C / ISO/IEC 15948), section 5.2: every PNG file starts
+    with the 8-byte signature 137 80 78 71 13 10 26 10."""
     path = tmp_path / "roof.png"
     plot_roof([RoofCurve(1, (1 << 14, 1 << 20, 1 << 28), (1e11, 5e10, 1.6e10))], str(path))
     assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -14,7 +14,10 @@ from kernels.triad import TRIAD, triad_arrays, triad_bytes
 
 def test_stream_counting_rule() -> None:
     """STREAM (McCalpin) counts the triad a = b + q*c as 3 words per element: 24 bytes in float64,
-    with no write-allocate traffic (from the benchmark's published counting rules, from memory)."""
+    with no write-allocate traffic.
+
+    From memory: J. D. McCalpin, STREAM benchmark, its published counting rules.
+    """
     assert triad_bytes(1000, 8) == 24_000
     assert triad_bytes(1000, 4) == 12_000
 

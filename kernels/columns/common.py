@@ -18,7 +18,7 @@ from kernels.state import State
 #: columns make that run 1 KiB in float64, long enough for the hardware prefetchers, while a
 #: thread's scratch (at most 3 x nz x 128 values, 192 KiB at nz=64) stays in L2. Measured on the
 #: development machine (4x64x128x128, float64, 1 thread): widths 32..512 on var.z.y.x,
-#: Y.X.var.z.y8.x16 and z.var.y.x; 128 was within noise of the best for all three kernels.
+#: y/8.x/16.var.z.y%8.x%16 and z.var.y.x; 128 was within noise of the best for all three kernels.
 STRIP_WIDTH = 128
 
 COLUMN = Schedule("column", "one column at a time; z innermost; threads split the columns")

@@ -22,7 +22,7 @@ from kernels.grid import Extents
 from kernels.registry import all_kernels
 from kernels.triad import TRIAD, triad_arrays, triad_bytes
 
-DEFAULT_LAYOUTS = "var.z.y.x,var.y.x.z,y.x.z.var,z.var.y.x,var.z.y+1.x,Y.X.var.z.y8.x16"
+DEFAULT_LAYOUTS = "var.z.y.x,var.y.x.z,y.x.z.var,z.var.y.x,var.z.y+1.x,y/8.x/16.var.z.y%8.x%16"
 
 
 def main() -> None:

@@ -11,14 +11,15 @@ import numba
 import pytest
 
 from kernels.grid import Extents
+from kernels.layout import parse_layout
 from kernels.registry import all_kernels
 
 GRID = Extents(var=4, z=32, y=64, x=64)
-LAYOUTS = ("var.z.y.x", "y.x.z.var", "Y.X.var.z.y8.x16")
+LAYOUTS = ("var.z.y.x", "y.x.z.var", "y/8.x/16.var.z.y%8.x%16")
 CASES = [(k, s.name, layout) for k, kernel in all_kernels().items() for s in kernel.schedules for layout in LAYOUTS]
 
 
-@pytest.mark.parametrize("kernel_name, schedule, layout", CASES, ids=["/".join(c) for c in CASES])
+@pytest.mark.parametrize("kernel_name, schedule, layout", CASES, ids=[f"{k}-{s}-{parse_layout(lay).file_stem}" for k, s, lay in CASES])
 def test_kernel(benchmark: pytest.FixtureRequest, kernel_name: str, schedule: str, layout: str) -> None:
     numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
     kernel = all_kernels()[kernel_name]
