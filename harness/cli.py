@@ -35,6 +35,8 @@ def build_parser() -> argparse.ArgumentParser:
     sweep_p.add_argument("--smoke", action="store_true", help="run the tiny built-in smoke suite (seconds, for CI and first checks)")
     sweep_p.add_argument("--out", help="run directory to create (default: results/runs/<time>-<suite>-<machine>)")
     sweep_p.add_argument("--resume", metavar="RUN_DIR", help="continue an interrupted run, skipping finished cases")
+    sweep_p.add_argument("--repeat", type=int, metavar="N", help="run every group N times, interleaved, to measure "
+                         "run-to-run spread (overrides the suite's timing.repetitions)")
     sweep_p.add_argument("--quiet", action="store_true", help="no progress bar (for CI logs)")
     sweep_p.add_argument("--no-vector-report", action="store_true", help="skip reading the machine code for vectorisation")
     sweep_p.set_defaults(func=_sweep)
@@ -52,6 +54,7 @@ def build_parser() -> argparse.ArgumentParser:
     rank_p.add_argument("--reference", metavar="LAYOUT", help="also give speedups over this layout")
     rank_p.add_argument("--alpha", type=float, default=0.05, help="family-wise significance level of tier separations")
     rank_p.add_argument("--floor", type=float, default=0.03, help="minimum practical difference, as a fraction (0.03 = 3%%)")
+    rank_p.add_argument("--confidence", type=float, default=0.95, help="two-sided level of every interval (default 0.95)")
     rank_p.add_argument("--mix", help="kernel weights, e.g. varcoef=1,advection=2 (default: the suite's [mix])")
     rank_p.add_argument("--plots", metavar="DIR", help="write PNG plots here (needs the 'plot' extra)")
     rank_p.set_defaults(func=_rank)
@@ -122,6 +125,8 @@ def _rank(args: argparse.Namespace) -> int:
         raise StridewiseError(f"--alpha must be between 0 and 1, got {args.alpha}")
     if not 0 <= args.floor < 1:
         raise StridewiseError(f"--floor must be a fraction in [0, 1), got {args.floor}")
+    if not 0.5 <= args.confidence < 1:
+        raise StridewiseError(f"--confidence must be in [0.5, 1), got {args.confidence}")
     mix = None
     if args.mix:
         mix = {}
@@ -134,7 +139,7 @@ def _rank(args: argparse.Namespace) -> int:
             if not sep or mix[name.strip()] < 0:
                 raise StridewiseError(f"bad --mix item '{item}'; write KERNEL=WEIGHT with WEIGHT >= 0")
     reference = parse_layout(args.reference).spec if args.reference else None
-    ranking = rank_runs(load_runs(args.runs), RankOptions(args.alpha, args.floor, reference, mix))
+    ranking = rank_runs(load_runs(args.runs), RankOptions(args.alpha, args.floor, reference, mix, args.confidence))
     text = render(ranking, args.format)
     if args.out:
         from pathlib import Path
@@ -156,7 +161,12 @@ def _sweep(args: argparse.Namespace) -> int:
 
     if args.smoke and args.suite:
         raise StridewiseError("give either a suite or --smoke, not both")
-    return run_sweep("smoke" if args.smoke else args.suite, args.out, args.resume, args.quiet, args.no_vector_report)
+    if args.repeat is not None and args.repeat < 1:
+        raise StridewiseError(f"--repeat must be a positive number of runs, got {args.repeat}")
+    if args.repeat is not None and args.resume:
+        raise StridewiseError("--repeat cannot change a run being resumed; it keeps the repetitions it began with")
+    return run_sweep("smoke" if args.smoke else args.suite, args.out, args.resume, args.quiet, args.no_vector_report,
+                     args.repeat)
 
 
 def _roof(args: argparse.Namespace) -> int:

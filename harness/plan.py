@@ -51,39 +51,52 @@ class Group:
     threads: int
     cases: tuple[CaseKey, ...]
     tag: str = ""  # distinguishes a second group of the same kernel (automatic conversions)
+    repetition: int = 0  # which run of the group (suite timing.repetitions)
 
     @property
     def label(self) -> str:
-        return f"{self.kernel}{self.tag} {self.grid} {self.dtype} {self.threads}t"
+        rep = f" rep{self.repetition + 1}" if self.repetition else ""
+        return f"{self.kernel}{self.tag} {self.grid} {self.dtype} {self.threads}t{rep}"
 
 
 def plan(suite: Suite, thread_counts: tuple[int, ...]) -> list[Group]:
-    """Every group of the suite, thread count outermost (one worker process per thread count)."""
-    registry = all_kernels()
+    """Every group of the suite, thread count outermost (one worker process per thread count);
+    with repetitions, each thread count runs all its groups once, then all again, and so on."""
+    from dataclasses import replace
+
     groups: list[Group] = []
     for threads in thread_counts:
-        builds = ("parallel", "serial") if (threads == 1 and suite.timing.serial_baseline) else ("parallel",)
-        for size in suite.sizes:
-            grid = str(size)
-            for dtype in suite.dtypes:
-                for name in suite.kernels:
-                    kernel = registry[name]
-                    schedules = [s.name for s in kernel.schedules if suite.schedules == "all" or s.name in suite.schedules]
-                    cases = tuple(
-                        CaseKey(name, s, b, layout, dtype, grid, threads)
-                        for layout in suite.layouts
-                        for s in schedules
-                        for b in builds
-                    )
-                    if cases:
-                        groups.append(Group(name, grid, dtype, threads, cases))
-                if suite.conversions:
-                    cases = tuple(
-                        CaseKey(CONVERT, "rows", b, f"{a}{ARROW}{z}", dtype, grid, threads)
-                        for a, z in suite.conversions
-                        for b in builds
-                    )
-                    groups.append(Group(CONVERT, grid, dtype, threads, cases))
+        once = _groups_at(suite, threads)
+        for rep in range(suite.timing.repetitions):
+            groups += [replace(g, repetition=rep) for g in once]
+    return groups
+
+
+def _groups_at(suite: Suite, threads: int) -> list[Group]:
+    registry = all_kernels()
+    groups: list[Group] = []
+    builds = ("parallel", "serial") if (threads == 1 and suite.timing.serial_baseline) else ("parallel",)
+    for size in suite.sizes:
+        grid = str(size)
+        for dtype in suite.dtypes:
+            for name in suite.kernels:
+                kernel = registry[name]
+                schedules = [s.name for s in kernel.schedules if suite.schedules == "all" or s.name in suite.schedules]
+                cases = tuple(
+                    CaseKey(name, s, b, layout, dtype, grid, threads)
+                    for layout in suite.layouts
+                    for s in schedules
+                    for b in builds
+                )
+                if cases:
+                    groups.append(Group(name, grid, dtype, threads, cases))
+            if suite.conversions:
+                cases = tuple(
+                    CaseKey(CONVERT, "rows", b, f"{a}{ARROW}{z}", dtype, grid, threads)
+                    for a, z in suite.conversions
+                    for b in builds
+                )
+                groups.append(Group(CONVERT, grid, dtype, threads, cases))
     return groups
 
 

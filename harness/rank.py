@@ -21,20 +21,26 @@ from __future__ import annotations
 import math
 import sys
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from harness.plan import ARROW, CONVERT
+from harness import metrics
+from harness.intervals import CONFIDENCE, Rounds
+from harness.plan import CONVERT
 from harness.stats import holm, wilcoxon_greater
 from harness.store import RunStore, RunStoreError
 from kernels.errors import StridewiseError
 from kernels.layout import parse_layout
 
 GROUP_KEYS = ["machine", "kernel", "grid", "dtype", "threads"]
+#: Round ids of the n-th run directory are offset by n times this (an even number, so the
+#: parity that splits choosing from reporting rounds is kept); blocks likewise.
+RUN_ROUND_OFFSET = 10_000_000
+RUN_BLOCK_OFFSET = 10_000
 
 
 @dataclass(frozen=True)
@@ -43,6 +49,7 @@ class RankOptions:
     floor: float = 0.03  # minimum practical difference, as a fraction
     reference: str | None = None  # layout speedups are also given against
     mix: dict[str, float] | None = None  # kernel weights; None: from the suites
+    confidence: float = CONFIDENCE  # two-sided level of every interval
 
 
 @dataclass
@@ -55,8 +62,10 @@ class Runs:
 
 
 def load_runs(paths: list[str]) -> Runs:
+    """Read run directories. Round ids are made unique across runs and each sample gets a
+    ``block`` (one per run and repetition), so repeated runs pool as blocks of rounds."""
     cases_list, samples_list, meta = [], [], {}
-    for path in paths:
+    for index, path in enumerate(paths):
         store = RunStore(Path(path))
         md = store.metadata()
         machine = md.get("fingerprint", {}).get("machine_id", Path(path).name)
@@ -67,8 +76,11 @@ def load_runs(paths: list[str]) -> Runs:
             print(f"stridewise: warning: {w.message}", file=sys.stderr)
         if cases.empty:
             raise RunStoreError(f"{path} holds no cases")
-        cases = cases.assign(machine=machine, run=str(path))
-        samples = samples.assign(machine=machine, run=str(path))
+        # Repetitions of a group write one row per case each; the first describes the case.
+        cases = cases.drop_duplicates("case_id", keep="first").assign(machine=machine, run=str(path))
+        repetition = samples["repetition"] if "repetition" in samples else 0
+        samples = samples.assign(machine=machine, run=str(path), round=samples["round"] + index * RUN_ROUND_OFFSET,
+                                 block=index * RUN_BLOCK_OFFSET + repetition)
         cases_list.append(cases)
         samples_list.append(samples[samples["phase"] == "measure"])
         meta.setdefault(machine, md)
@@ -115,21 +127,26 @@ def tiers(per_round: dict[str, pd.Series], order: list[str], alpha: float, floor
     return out
 
 
-def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions) -> pd.DataFrame:
-    """Ranked layouts of one group (one kernel, grid, dtype, thread count, machine)."""
+def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions,
+               probes: pd.DataFrame | None = None) -> tuple[pd.DataFrame, Rounds | None]:
+    """Ranked layouts of one group (one kernel, grid, dtype, thread count, machine), and the
+    reporting rounds of each layout's chosen case (plus the group's roof probes) for intervals."""
     par = cases[(cases["build"] == "parallel") & (cases["status"] == "ok")]
     if par.empty:
-        return pd.DataFrame()
+        return pd.DataFrame(), None
     smp = samples[samples["case_id"].isin(par["case_id"])]
-    if smp.empty:  # summary-only import: rank on recorded medians, no tiers
+    if smp.empty:  # summary-only import: rank on recorded medians, no tiers, no intervals
         rows = []
         for layout, lc in par.groupby("layout"):
             best = lc.sort_values("median_ns").iloc[0]
             rows.append({"layout": layout, "schedule": best["schedule"], "median_ns": best["median_ns"], "iqr_rel": np.nan,
                          "tier": np.nan, "rounds": 0, "case": best})
-        return _finish(pd.DataFrame(rows), options)
+        return _finish(pd.DataFrame(rows), None, None, options), None
     choose, report = _split_rounds(list(smp["round"].unique()))
+    by_serial = {cid: g.set_index("round")["ns"] for cid, g in samples[samples["build"] == "serial"].groupby("case_id")} \
+        if "build" in samples else {}
     by_case = {cid: g.set_index("round")["ns"] for cid, g in smp.groupby("case_id")}
+    blocks = smp.drop_duplicates("round").set_index("round")["block"] if "block" in smp else None
     rows, per_round, choose_median = [], {}, {}
     for layout, lc in par.groupby("layout"):
         best, best_med = None, math.inf
@@ -154,29 +171,33 @@ def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions)
     tier_of = tiers(per_round, order, options.alpha, options.floor)
     frame["tier"] = frame["layout"].map(tier_of)
     frame["split"] = "halves" if choose != report else "all rounds (too few to split)"
-    return _finish(frame, options)
+    series = dict(per_round)
+    serial = cases[(cases["build"] == "serial") & (cases["status"] == "ok")]
+    for layout, lc in serial.groupby("layout"):
+        picks = [(float(s[s.index.isin(choose)].median()), s) for s in (by_serial.get(c) for c in lc["case_id"]) if s is not None]
+        if picks:
+            series[metrics.SERIAL_PREFIX + layout] = min(picks, key=lambda m: m[0])[1].loc[lambda x: x.index.isin(report)]
+    if probes is not None and not probes.empty:
+        for cid, g in samples[samples["case_id"].isin(probes["case_id"])].groupby("case_id"):
+            series[metrics.PROBE_PREFIX + cid] = g.set_index("round")["ns"].loc[lambda x: x.index.isin(report)]
+    rounds = Rounds.from_series(series, blocks)
+    return _finish(frame, rounds, probes, options), rounds
 
 
-def _finish(frame: pd.DataFrame, options: RankOptions) -> pd.DataFrame:
+def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | None, options: RankOptions) -> pd.DataFrame:
     case = frame.pop("case")
     frame["traffic_bytes"] = [c["traffic_bytes"] for c in case]
     frame["flops"] = [c["flops"] for c in case]
+    frame["footprint_bytes"] = [c.get("footprint_bytes", np.nan) for c in case]
     frame["roof_gbps"] = [c.get("roof_gbps", np.nan) for c in case]
     frame["overhead_bound"] = [str(c.get("overhead_bound")) == "True" for c in case]
     frame["vectorised"] = [c.get("vectorised") for c in case]
-    frame["gbps"] = frame["traffic_bytes"] / frame["median_ns"]
-    frame["pct_roof"] = 100 * frame["gbps"] / frame["roof_gbps"]
-    frame["gflops"] = frame["flops"] / frame["median_ns"]
-    frame["speedup_vs_slowest"] = frame["median_ns"].max() / frame["median_ns"]
-    if options.reference is not None and options.reference in set(frame["layout"]):
-        ref = float(frame.loc[frame["layout"] == options.reference, "median_ns"].iloc[0])
-        frame["speedup_vs_reference"] = ref / frame["median_ns"]
-    else:
-        frame["speedup_vs_reference"] = np.nan
     frame["plain"] = frame["layout"].map(_is_plain)
     frame = frame.sort_values(["tier", "median_ns"], na_position="last").reset_index(drop=True)
     frame["rank"] = np.arange(1, len(frame) + 1)
-    return frame.drop(columns=["traffic_bytes", "flops"])
+    key = f"{case.iloc[0]['kernel']}|{case.iloc[0]['grid']}|{case.iloc[0]['dtype']}|{case.iloc[0]['threads']}"
+    frame = frame.assign(**metrics.ranked_figures(frame, rounds, probes, options.reference, key, options.confidence))
+    return frame.drop(columns=["traffic_bytes", "flops", "footprint_bytes"])
 
 
 @dataclass
@@ -185,111 +206,89 @@ class Ranking:
 
     table: pd.DataFrame  # one row per ranked entry (group keys + layout figures)
     scaling: pd.DataFrame  # per layout and thread count: speedup over 1 thread, efficiency
-    flips: list[str]  # sentences where the winner changes with thread count
+    flips: list[str]  # sentences on whether the winner changes with thread count
     mix: list[dict[str, Any]]  # per (machine, grid, dtype, threads): best single layout and switching
     machine_diffs: pd.DataFrame  # winners that differ between machines
     failed: pd.DataFrame
     runs: Runs
     options: RankOptions
+    rounds: dict[tuple[Any, ...], Rounds]  # group key -> reporting rounds of each ranked layout
+    repetitions: pd.DataFrame  # per group with several runs or repetitions: spread and agreement
+
+
+def _probes_of(cases: pd.DataFrame, key: tuple[Any, ...]) -> pd.DataFrame:
+    machine, kernel, grid, dtype, threads = key
+    return cases[(cases["kernel"] == "triad") & (cases["schedule"] == f"probe-{kernel}") & (cases["machine"] == machine)
+                 & (cases["grid"] == grid) & (cases["dtype"] == dtype) & (cases["threads"] == threads)]
 
 
 def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
+    from harness.mix import kernel_mix
+    from harness.scaling import scaling_and_flips
+
     cases = runs.cases
     kernels = cases[(cases["kernel"] != "triad") & (cases["kernel"] != CONVERT)]
-    tables = []
+    tables, rounds = [], {}
     for key, grp in kernels.groupby(GROUP_KEYS, sort=False):
-        ranked = rank_group(grp, runs.samples[runs.samples["case_id"].isin(grp["case_id"]) & (runs.samples["machine"] == key[0])], options)
+        probes = _probes_of(cases, key)
+        wanted = set(grp["case_id"]) | set(probes["case_id"])  # serial builds are in grp
+        mine = runs.samples[runs.samples["case_id"].isin(wanted) & (runs.samples["machine"] == key[0])]
+        looks = max_looks(runs.metadata.get(key[0], {}))
+        group_options = replace(options, alpha=options.alpha / looks)
+        ranked, group_rounds = rank_group(grp, mine, group_options, probes)
+        ranked["looks"] = looks
         if ranked.empty:
             continue
         for name, value in zip(GROUP_KEYS, key):
             ranked[name] = value
         tables.append(ranked)
+        if group_rounds is not None:
+            rounds[key] = group_rounds
     if not tables:
         raise StridewiseError("no successful kernel cases to rank in the given run directories")
     table = pd.concat(tables, ignore_index=True)
     table = table[GROUP_KEYS + [c for c in table.columns if c not in GROUP_KEYS]]
-    scaling, flips = _scaling(table, cases)
+    scaling, flips = scaling_and_flips(table, rounds, options)
     failed = cases[(cases["status"] != "ok") & (cases["kernel"] != "triad")]
-    return Ranking(table, scaling, flips, _mix(table, cases, runs, options), _machine_diffs(table), failed, runs, options)
+    mix = kernel_mix(table, rounds, runs, options)
+    return Ranking(table, scaling, flips, mix, _machine_diffs(table), failed, runs, options, rounds,
+                   repetition_agreement(table, rounds))
 
 
-def _scaling(table: pd.DataFrame, cases: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
-    """Per layout and thread count: speedup over the same (threaded) build at 1 thread, parallel
-    efficiency, and the ratio to the best single-threaded (parallel=False) build."""
-    rows, flips = [], []
-    for (machine, kernel, grid, dtype), grp in table.groupby(["machine", "kernel", "grid", "dtype"], sort=False):
-        serial = cases[(cases["machine"] == machine) & (cases["kernel"] == kernel) & (cases["grid"] == grid)
-                       & (cases["dtype"] == dtype) & (cases["build"] == "serial") & (cases["status"] == "ok")]
-        one = grp[grp["threads"] == 1].set_index("layout")["median_ns"]
-        for _, r in grp.iterrows():
-            base = float(one[r["layout"]]) if r["layout"] in one.index else np.nan
-            ser = serial[serial["layout"] == r["layout"]]["median_ns"]
-            speedup = base / r["median_ns"]
-            rows.append({"machine": machine, "kernel": kernel, "grid": grid, "dtype": dtype, "layout": r["layout"],
-                         "threads": r["threads"], "median_ns": r["median_ns"], "speedup": speedup,
-                         "efficiency": speedup / r["threads"],
-                         "vs_serial_build": float(ser.min()) / r["median_ns"] if len(ser) else np.nan})
-        winners = {int(t): g.iloc[0]["layout"] for t, g in grp.groupby("threads")}
-        if len(set(winners.values())) > 1:
-            text = ", ".join(f"`{w}` at {t} thread(s)" for t, w in sorted(winners.items()))
-            flips.append(f"{kernel} ({grid}, {dtype}, machine {machine}): the winner changes with threads: {text}.")
-    return pd.DataFrame(rows), flips
+def max_looks(metadata: dict[str, Any]) -> int:
+    """Looks the run's adaptive policy allowed each group (1 when adaptive effort was off)."""
+    from harness.suite import Timing
+
+    timing = metadata.get("suite", {}).get("timing") or {}
+    known = {k: v for k, v in timing.items() if k in Timing.__dataclass_fields__}
+    try:
+        return Timing(**known).max_looks()
+    except TypeError:
+        return 1
 
 
-def _mix_weights(runs: Runs, options: RankOptions, machine: str) -> dict[str, float]:
-    if options.mix is not None:
-        return options.mix
-    mix = runs.metadata[machine].get("suite", {}).get("mix") or []
-    return {k: float(v) for k, v in mix}
+def repetition_agreement(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds]) -> pd.DataFrame:
+    """For groups measured in several runs or repetitions (blocks): between-run spread of each
+    layout's median, Kendall's tau between the layout orders of every two blocks, and whether
+    every block has the same leader."""
+    from scipy.stats import kendalltau
 
-
-def _mix(table: pd.DataFrame, cases: pd.DataFrame, runs: Runs, options: RankOptions) -> list[dict[str, Any]]:
-    out = []
-    for (machine, grid, dtype, threads), grp in table.groupby(["machine", "grid", "dtype", "threads"], sort=False):
-        weights = {k: w for k, w in _mix_weights(runs, options, machine).items() if w > 0}
-        if not weights:
+    rows = []
+    for key, r in rounds.items():
+        blocks = np.unique(r.blocks)
+        layouts = [l for l in table[(table[GROUP_KEYS] == pd.Series(dict(zip(GROUP_KEYS, key)))).all(axis=1)]["layout"]
+                   if l in r.labels]
+        if blocks.size < 2 or len(layouts) < 2:
             continue
-        missing = [k for k in weights if k not in set(grp["kernel"])]
-        entry: dict[str, Any] = {"machine": machine, "grid": grid, "dtype": dtype, "threads": int(threads), "weights": weights}
-        if missing:
-            entry["note"] = f"not in the runs: {', '.join(missing)}"
-            out.append(entry)
-            continue
-        med = {k: g.set_index("layout")["median_ns"] for k, g in grp.groupby("kernel") if k in weights}
-        common = set.intersection(*(set(s.index) for s in med.values()))
-        totals = {layout: sum(w * med[k][layout] for k, w in weights.items()) for layout in common}
-        if not totals:
-            entry["note"] = "no layout was run for every weighted kernel"
-            out.append(entry)
-            continue
-        best_total = min(totals.values())
-        near = [l for l, t in totals.items() if t <= best_total * (1 + options.floor)]
-        single = min(near, key=lambda l: (not _is_plain(l), totals[l]))
-        entry["single_layout"] = single
-        entry["single_ns"] = totals[single]
-        per_kernel = {}
-        for k in weights:
-            g = grp[grp["kernel"] == k]
-            top = g[g["tier"] == g["tier"].min()] if g["tier"].notna().any() else g.head(1)
-            per_kernel[k] = min(top["layout"], key=lambda l: (not _is_plain(l), float(top.set_index("layout").loc[l, "median_ns"])))
-        entry["per_kernel"] = per_kernel
-        compute = sum(w * med[k][per_kernel[k]] for k, w in weights.items())
-        sequence = [per_kernel[k] for k in weights]
-        hops = [(a, b) for a, b in zip(sequence, sequence[1:] + sequence[:1]) if a != b]
-        conv = cases[(cases["machine"] == machine) & (cases["kernel"] == CONVERT) & (cases["grid"] == grid)
-                     & (cases["dtype"] == dtype) & (cases["threads"] == threads) & (cases["build"] == "parallel")
-                     & (cases["status"] == "ok")].set_index("layout")["median_ns"]
-        unpriced = [f"{a}{ARROW}{b}" for a, b in hops if f"{a}{ARROW}{b}" not in conv.index]
-        entry["switch_compute_ns"] = compute
-        if unpriced:
-            entry["switch_note"] = f"conversion {', '.join(unpriced)} not measured; add it to [conversions]"
-        else:
-            convert_ns = sum(float(conv[f"{a}{ARROW}{b}"]) for a, b in hops)
-            entry["switch_ns"] = compute + convert_ns
-            entry["convert_ns"] = convert_ns
-            entry["switch_pays"] = bool(entry["switch_ns"] < entry["single_ns"] * (1 - options.floor))
-        out.append(entry)
-    return out
+        medians = np.array([[np.median(r.column(l)[r.blocks == b]) for l in layouts] for b in blocks])
+        taus = [kendalltau(medians[i], medians[j]).statistic for i in range(len(blocks)) for j in range(i + 1, len(blocks))]
+        leaders = {layouts[int(np.argmin(m))] for m in medians}
+        spread = medians.max(axis=0) / medians.min(axis=0)
+        rows.append({**dict(zip(GROUP_KEYS, key)), "blocks": int(blocks.size), "tau_min": float(np.nanmin(taus)),
+                     "tau_median": float(np.nanmedian(taus)), "same_leader": len(leaders) == 1,
+                     "leaders": ", ".join(sorted(leaders)), "spread_max": float(spread.max()),
+                     "spread_layout": layouts[int(np.argmax(spread))]})
+    return pd.DataFrame(rows)
 
 
 def _machine_diffs(table: pd.DataFrame) -> pd.DataFrame:

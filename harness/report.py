@@ -10,10 +10,20 @@ import numpy as np
 import pandas as pd
 from tabulate import tabulate
 
+from harness.intervals import Interval
 from harness.rank import Ranking
 
 FAMILY_WORDS = {"columns": "column solves", "stencils": "stencils"}
-TABLE_COLUMNS = ["rank", "tier", "layout", "schedule", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "x slowest", "x reference", "flags"]
+TABLE_COLUMNS = ["rank", "tier", "layout", "schedule", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "x best",
+                 "x reference", "flags"]
+FLAG_NOTES = {
+    ">roof": "`>roof`: the kernel's bandwidth by its byte model is above the best same-footprint triad of its "
+             "rounds. The byte model counts no write-allocate traffic (the STREAM convention), so a kernel that "
+             "writes a smaller share of its bytes than the triad's 1 in 3 pays less of it than the triad does; "
+             "where the interval includes 100 the excess is within noise.",
+    "overhead-bound": "`overhead-bound`: the median is under 10x the empty kernel's dispatch and fork/join time.",
+    "scalar": "`scalar`: the compiled loop has no packed vector instructions.",
+}
 
 
 def _num(value: Any, spec: str) -> str:
@@ -22,16 +32,58 @@ def _num(value: Any, spec: str) -> str:
     return format(value, spec)
 
 
-def _headline(kernel: str, family: str, threads: int, grp: pd.DataFrame) -> str:
-    best, worst = grp.iloc[0], grp.iloc[-1]
+def _iv(row: Any, name: str, spec: str, scale: float = 1.0) -> str:
+    """A figure with its interval from a row's ``name``, ``name_lo``, ``name_hi`` columns."""
+    value = row.get(name) if hasattr(row, "get") else None
+    lo, hi = row.get(f"{name}_lo", np.nan), row.get(f"{name}_hi", np.nan)
+    if value is None or not np.isfinite(value):
+        return ""
+    return Interval(value * scale, lo * scale, hi * scale).text(spec)
+
+
+def _headline(kernel: str, family: str, threads: int, grp: pd.DataFrame, confidence: float) -> str:
+    best = grp.iloc[0]
     what = f"{kernel} {FAMILY_WORDS.get(family, '')}".strip()
     if len(grp) < 2:
         return f"At {threads} thread(s), only `{best['layout']}` ran for {what}."
-    ratio = worst["median_ns"] / best["median_ns"]
-    tied = grp[grp["tier"] == best["tier"]]["layout"].tolist() if pd.notna(best["tier"]) else [best["layout"]]
-    tail = f" Tier 1 also holds {', '.join(f'`{t}`' for t in tied[1:])}." if len(tied) > 1 else ""
-    return (f"At {threads} thread(s), `{best['layout']}` runs best for {what}; the slowest layout, "
-            f"`{worst['layout']}`, takes {ratio:.1f}x as long.{tail}")
+    worst = grp.loc[grp["time_vs_best"].idxmax()]
+    spread = Interval(worst["time_vs_best"], worst.get("time_vs_best_lo", np.nan), worst.get("time_vs_best_hi", np.nan))
+    if np.isfinite(spread.lo):
+        tail = f"takes {spread.value:.2f}x as long ({confidence:.0%} interval {spread.lo:.2f} to {spread.hi:.2f})"
+    else:
+        tail = f"takes {spread.value:.2f}x as long (no interval: no per-round samples)"
+    if pd.isna(best["tier"]):
+        return f"At {threads} thread(s), `{best['layout']}` has the lowest median for {what} (not tested); " \
+               f"the slowest layout, `{worst['layout']}`, {tail}."
+    tied = grp[grp["tier"] == best["tier"]]["layout"].tolist()
+    if len(tied) == 1:
+        return f"At {threads} thread(s), `{best['layout']}` runs best for {what}, separated from every other layout; " \
+               f"the slowest layout, `{worst['layout']}`, {tail}."
+    leader = best["layout"]
+    names = ", ".join(f"`{t}`" for t in tied)
+    tail = tail.replace("as long", f"as long as `{leader}`", 1)
+    return (f"At {threads} thread(s), no single layout runs best for {what}: tier 1 holds {names}, which cannot be "
+            f"told apart; the slowest layout, `{worst['layout']}`, {tail}.")
+
+
+def _inversions(grp: pd.DataFrame) -> str | None:
+    """Explain rows whose median is higher than that of a row ranked below them."""
+    pairs = []
+    rows = list(grp.itertuples())
+    for i, a in enumerate(rows):
+        for b in rows[i + 1:]:
+            if pd.notna(a.tier) and pd.notna(b.tier) and a.tier < b.tier and a.median_ns > b.median_ns:
+                pairs.append((a, b))
+    if not pairs:
+        return None
+    a, b = pairs[0]
+    more = f" ({len(pairs) - 1} more such pair(s))" if len(pairs) > 1 else ""
+    return (f"Rank {a.rank} `{a.layout}` (tier {a.tier:.0f}) shows a higher median than rank {b.rank} `{b.layout}` "
+            f"(tier {b.tier:.0f}){more}: tiers come from round-by-round tests against each tier's leader, not from "
+            f"the medians. The paired test separates `{b.layout}` from the leader it was compared with, while "
+            f"`{a.layout}` varies too much from round to round to be separated from its own (compare their x best "
+            f"intervals, {Interval(a.time_vs_best, a.time_vs_best_lo, a.time_vs_best_hi).text('.2f')} and "
+            f"{Interval(b.time_vs_best, b.time_vs_best_lo, b.time_vs_best_hi).text('.2f')}).")
 
 
 def _power_note(grp: pd.DataFrame, alpha: float) -> str | None:
@@ -69,6 +121,33 @@ def _machine_header(machine: str, md: dict[str, Any]) -> list[str]:
     return lines
 
 
+def _looks_note(r: Ranking) -> str:
+    looks = int(r.table["looks"].max()) if "looks" in r.table else 1
+    if looks <= 1:
+        return ""
+    return (f" (adaptive effort was on: alpha is divided by the {looks} looks a group may take, "
+            f"{r.options.alpha / looks:.3g} per comparison family)")
+
+
+def _group_table(grp: pd.DataFrame) -> tuple[str, list[str]]:
+    rows, used = [], []
+    for _, e in grp.iterrows():
+        flags = []
+        if e["overhead_bound"]:
+            flags.append("overhead-bound")
+        if str(e.get("vectorised")) == "False":
+            flags.append("scalar")
+        if e.get("above_roof"):
+            flags.append(">roof")
+        used += flags
+        rows.append([
+            int(e["rank"]), _num(e["tier"], ".0f"), e["layout"], e["schedule"], _iv(e, "median_ns", ".4g", 1e-6),
+            _num(e["iqr_rel"], ".1%"), _num(e["gbps"], ".1f"), _iv(e, "pct_roof", ".0f"), _num(e["gflops"], ".2f"),
+            _iv(e, "time_vs_best", ".2f"), _iv(e, "speedup_vs_reference", ".2f"), " ".join(flags),
+        ])
+    return tabulate(rows, headers=TABLE_COLUMNS, tablefmt="github", disable_numparse=True), used
+
+
 def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     opts = r.options
     out = [f"# {title}", ""]
@@ -76,20 +155,25 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
         out += _machine_header(machine, md)
         if md.get("imported", {}).get("raw_samples") is False:
             out.append(f"Imported from {md['imported']['source']} without raw samples: ranked on the recorded medians, "
-                       "without tiers or dispersion.")
+                       "without tiers, dispersion or intervals.")
+    reference = f" `{opts.reference}`" if opts.reference else ""
     out += [
         "",
         f"Ranked on each layout's best schedule (chosen on even rounds, figures from odd rounds). Tiers: paired "
         f"one-sided Wilcoxon signed-rank tests against each tier's leader, Holm-corrected, alpha {opts.alpha:g}, "
-        f"minimum practical difference {opts.floor:.0%}.",
+        f"minimum practical difference {opts.floor:.0%}{_looks_note(r)}. Figures in brackets are {opts.confidence:.0%} intervals "
+        f"(percentile bootstrap over rounds, paired within a group). `x best` is a layout's time over rank 1's; "
+        f"`x reference` is the reference layout's{reference} time over the layout's; `% roof` is the median "
+        f"bandwidth by the byte model over the best round of a same-footprint triad timed in the same rounds.",
         "",
     ]
     families = dict(zip(r.runs.cases["kernel"], r.runs.cases["family"]))
+    flags_used: list[str] = []
     for key, grp in r.table.groupby(["machine", "kernel", "grid", "dtype", "threads"], sort=False):
         machine, kernel, grid, dtype, threads = key
         out.append(f"## {kernel}, {grid}, {dtype}, {threads} thread(s)" + (f", machine {machine}" if len(r.runs.metadata) > 1 else ""))
         out.append("")
-        out.append(_headline(kernel, families.get(kernel, ""), int(threads), grp))
+        out.append(_headline(kernel, families.get(kernel, ""), int(threads), grp, opts.confidence))
         power = _power_note(grp, opts.alpha)
         if power:
             out += ["", power]
@@ -97,52 +181,19 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
             out.append("")
             out.append("Too few rounds to split: schedules were chosen and reported on the same rounds.")
         out.append("")
-        rows = []
-        for _, e in grp.iterrows():
-            flags = []
-            if e["overhead_bound"]:
-                flags.append("overhead-bound")
-            if str(e.get("vectorised")) == "False":
-                flags.append("scalar")
-            rows.append([
-                int(e["rank"]), _num(e["tier"], ".0f"), e["layout"], e["schedule"], _num(e["median_ns"] / 1e6, ".4g"),
-                _num(e["iqr_rel"], ".1%"), _num(e["gbps"], ".1f"), _num(e["pct_roof"], ".0f"), _num(e["gflops"], ".2f"),
-                _num(e["speedup_vs_slowest"], ".2f"), _num(e["speedup_vs_reference"], ".2f"), " ".join(flags),
-            ])
-        out.append(tabulate(rows, headers=TABLE_COLUMNS, tablefmt="github", disable_numparse=True))
+        table, used = _group_table(grp)
+        flags_used += used
+        out.append(table)
+        inversion = _inversions(grp)
+        if inversion:
+            out += ["", inversion]
         out.append("")
-    if not r.scaling.empty and r.scaling["threads"].nunique() > 1:
-        out += ["## Thread scaling", ""]
-        out += [f"- {f}" for f in r.flips] or ["- The winner is the same at every thread count."]
-        out.append("")
-        out.append("Speedup and efficiency are over the same threaded build at 1 thread; the last column compares "
-                   "with the best single-threaded (parallel=False) build, the compiler's view of serial code.")
-        out.append("")
-        rows = [[s["kernel"], s["layout"], int(s["threads"]), _num(s["median_ns"] / 1e6, ".4g"),
-                 _num(s["speedup"], ".2f"), _num(s["efficiency"], ".0%"), _num(s["vs_serial_build"], ".2f")]
-                for _, s in r.scaling[r.scaling["threads"] > 1].iterrows()]
-        out.append(tabulate(rows, headers=["kernel", "layout", "threads", "median ms", "speedup", "efficiency", "x serial build"],
-                            tablefmt="github", disable_numparse=True))
-        out.append("")
-    if r.mix:
-        out += ["## Kernel mix", ""]
-        for m in r.mix:
-            weights = ", ".join(f"{k} x{w:g}" for k, w in m["weights"].items())
-            out.append(f"### {m['grid']}, {m['dtype']}, {m['threads']} thread(s) (weights: {weights})")
-            out.append("")
-            if "note" in m:
-                out += [f"Cannot rank the mix: {m['note']}.", ""]
-                continue
-            out.append(f"- Best single layout: `{m['single_layout']}`, {m['single_ns'] / 1e6:.3f} ms per step.")
-            per = ", ".join(f"{k}: `{v}`" for k, v in m["per_kernel"].items())
-            out.append(f"- Best layout per kernel: {per}; {m['switch_compute_ns'] / 1e6:.3f} ms of kernels per step.")
-            if "switch_note" in m:
-                out.append(f"- Switching cannot be priced: {m['switch_note']}.")
-            else:
-                verdict = "pays off" if m["switch_pays"] else "does not pay off"
-                out.append(f"- With {m['convert_ns'] / 1e6:.3f} ms of measured conversions, switching costs "
-                           f"{m['switch_ns'] / 1e6:.3f} ms per step: it {verdict}.")
-            out.append("")
+    notes = [FLAG_NOTES[f] for f in FLAG_NOTES if f in flags_used]
+    if notes:
+        out += ["Flags: " + " ".join(notes), ""]
+    out += _repetition_section(r)
+    out += _scaling_section(r)
+    out += _mix_section(r)
     if not r.machine_diffs.empty:
         out += ["## Where the winner differs between machines", ""]
         out.append(tabulate(r.machine_diffs.values.tolist(), headers=list(map(str, r.machine_diffs.columns)), tablefmt="github"))
@@ -150,6 +201,75 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     if not r.failed.empty:
         out += failed_section(r.failed)
     return "\n".join(out)
+
+
+def _repetition_section(r: Ranking) -> list[str]:
+    rep = r.repetitions
+    if rep is None or rep.empty:
+        return []
+    out = ["## Run-to-run agreement", "",
+           "Groups measured in several runs or repetitions (`sweep --repeat N`, or several run directories of one "
+           "machine). Intervals above pool them, resampling runs and then rounds within runs, so they include the "
+           "between-run spread; the tiers' paired tests pool the rounds. Spread: the largest ratio between one "
+           "layout's medians in two runs. Kendall's tau: agreement of the layout orders of two runs (1 = same order).",
+           ""]
+    rows = [[e["kernel"], e["grid"], e["dtype"], int(e["threads"]), int(e["blocks"]),
+             f"{e['spread_max']:.2f}x ({e['spread_layout']})", f"{e['tau_min']:.2f}", f"{e['tau_median']:.2f}",
+             "yes" if e["same_leader"] else f"no: {e['leaders']}"] for _, e in rep.iterrows()]
+    out.append(tabulate(rows, headers=["kernel", "grid", "dtype", "threads", "runs", "largest spread", "tau (min)",
+                                       "tau (median)", "same leader in every run"], tablefmt="github", disable_numparse=True))
+    held = int(rep["same_leader"].sum())
+    out += ["", f"The leader held in every run for {held} of {len(rep)} group(s)."]
+    return out + [""]
+
+
+def _scaling_section(r: Ranking) -> list[str]:
+    if r.scaling.empty or r.scaling["threads"].nunique() < 2:
+        return []
+    out = ["## Thread scaling", ""]
+    out += [f"- {f}" for f in r.flips]
+    out += ["", "Speedup is over the same threaded build at 1 thread (each thread count's best schedule, shown as "
+            "1-thread -> t-thread); efficiency is speedup over threads; `x serial build` compares with the best "
+            "single-threaded (parallel=False) build. `inconclusive`: the interval reaches both below 1 and above the "
+            "thread count; `superlinear`: the whole interval is above the thread count.", ""]
+    rows = [[s["kernel"], s["layout"], int(s["threads"]), f"{s['schedule_1thread']} -> {s['schedule']}",
+             _num(s["median_ns"] / 1e6, ".4g"), _iv(s, "speedup", ".2f"), _iv(s, "efficiency", ".0%"),
+             _iv(s, "vs_serial_build", ".2f"), s["flags"]]
+            for _, s in r.scaling[r.scaling["threads"] > 1].iterrows()]
+    out.append(tabulate(rows, headers=["kernel", "layout", "threads", "schedules", "median ms", "speedup", "efficiency",
+                                       "x serial build", "flags"], tablefmt="github", disable_numparse=True))
+    return out + [""]
+
+
+def _mix_section(r: Ranking) -> list[str]:
+    if not r.mix:
+        return []
+    conf = f"{r.options.confidence:.0%}"
+    out = ["## Kernel mix", ""]
+    for m in r.mix:
+        weights = ", ".join(f"{k} x{w:g}" for k, w in m["weights"].items())
+        out.append(f"### {m['grid']}, {m['dtype']}, {m['threads']} thread(s) (weights: {weights})")
+        out.append("")
+        if "note" in m:
+            out += [f"Cannot rank the mix: {m['note']}.", ""]
+            continue
+        single = Interval(m["single_ns"] / 1e6, m.get("single_lo", np.nan) / 1e6, m.get("single_hi", np.nan) / 1e6)
+        near = m.get("near_single") or []
+        within = f" (within {r.options.floor:.0%} of it: {', '.join(f'`{l}`' for l in near)})" if near else ""
+        out.append(f"- Best single layout: `{m['single_layout']}`, {single.text('.3f')} ms per step{within}.")
+        per = ", ".join(f"{k}: `{v}`" for k, v in m["per_kernel"].items())
+        out.append(f"- Best layout per kernel: {per}; {m['switch_compute_ns'] / 1e6:.3f} ms of kernels per step.")
+        if "switch_note" in m:
+            out.append(f"- Switching cannot be priced: {m['switch_note']}.")
+        else:
+            ratio = Interval(m.get("switch_ratio", np.nan), m.get("switch_ratio_lo", np.nan), m.get("switch_ratio_hi", np.nan))
+            verdict = {True: "it pays off", False: "it does not pay off",
+                       None: f"cannot tell whether it pays off at {conf}"}[m.get("switch_pays")]
+            ratio_text = f"{ratio.text('.2f')} times the single layout's step" if np.isfinite(ratio.value) else "no interval"
+            out.append(f"- With {m['convert_ns'] / 1e6:.3f} ms of measured conversions, switching costs "
+                       f"{m['switch_ns'] / 1e6:.3f} ms per step, {ratio_text}: {verdict}.")
+        out.append("")
+    return out
 
 
 def failed_section(failed: pd.DataFrame) -> list[str]:
@@ -160,18 +280,22 @@ def failed_section(failed: pd.DataFrame) -> list[str]:
 
 
 EXPORT_COLUMNS = [
-    "machine", "kernel", "grid", "dtype", "threads", "rank", "tier", "layout", "schedule", "median_ns", "iqr_rel",
-    "gbps", "roof_gbps", "pct_roof", "gflops", "speedup_vs_slowest", "speedup_vs_reference", "overhead_bound",
-    "vectorised", "plain", "rounds",
+    "machine", "kernel", "grid", "dtype", "threads", "rank", "tier", "layout", "schedule",
+    "median_ns", "median_ns_lo", "median_ns_hi", "iqr_rel", "gbps", "roof_gbps",
+    "pct_roof", "pct_roof_lo", "pct_roof_hi", "above_roof", "gflops",
+    "time_vs_best", "time_vs_best_lo", "time_vs_best_hi",
+    "speedup_vs_reference", "speedup_vs_reference_lo", "speedup_vs_reference_hi",
+    "overhead_bound", "vectorised", "plain", "rounds",
 ]
+SCALING_EXPORT = ["speedup", "speedup_lo", "speedup_hi", "efficiency", "efficiency_lo", "efficiency_hi"]
 
 
 def export_frame(r: Ranking) -> pd.DataFrame:
     """One row per ranked entry, every key a column (the CSV and JSON content)."""
     frame = r.table[[c for c in EXPORT_COLUMNS if c in r.table.columns]].copy()
     if not r.scaling.empty:
-        sc = r.scaling[["machine", "kernel", "grid", "dtype", "layout", "threads", "speedup", "efficiency"]]
-        frame = frame.merge(sc.rename(columns={"speedup": "speedup_vs_1thread"}), how="left",
+        sc = r.scaling[["machine", "kernel", "grid", "dtype", "layout", "threads", *SCALING_EXPORT]]
+        frame = frame.merge(sc.rename(columns={c: c.replace("speedup", "speedup_vs_1thread") for c in SCALING_EXPORT}), how="left",
                             on=["machine", "kernel", "grid", "dtype", "layout", "threads"])
     return frame
 

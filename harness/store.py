@@ -29,6 +29,8 @@ CASE_COLUMNS = [
     "gbps", "roof_gbps", "pct_roof", "gflops", "overhead_ns", "overhead_bound", "harness_overhead_ns",
     "compile_s", "loaded_from_cache", "vectorised", "vector_bits", "order_seed",
 ]
+#: Columns added after the first format; a reader fills them in when an older run lacks them.
+OPTIONAL_COLUMNS = {"repetition": 0}
 
 
 class RunStoreError(StridewiseError):
@@ -43,6 +45,8 @@ class RunStore:
 
     # -- writing --------------------------------------------------------------------------
     def create(self, suite_text: str, metadata: dict[str, Any]) -> None:
+        """Make the directory and write the suite, metadata and the CSV headers (the current format,
+        optional columns included)."""
         try:
             self.path.mkdir(parents=True, exist_ok=True)
             probe = self.path / ".write-test"
@@ -56,7 +60,7 @@ class RunStore:
             target = self.path / name
             if not target.exists():
                 with target.open("w", newline="") as fh:
-                    csv.writer(fh).writerow(columns)
+                    csv.writer(fh).writerow(columns + list(OPTIONAL_COLUMNS))
 
     def write_metadata(self, metadata: dict[str, Any]) -> None:
         tmp = self.path / (METADATA + ".tmp")
@@ -67,10 +71,16 @@ class RunStore:
         """Append one finished group: samples first, then the case rows that mark it finished."""
         for name, columns, rows in ((SAMPLES, SAMPLE_COLUMNS, samples), (CASES, CASE_COLUMNS, cases)):
             with (self.path / name).open("a", newline="") as fh:
-                writer = csv.DictWriter(fh, fieldnames=columns, extrasaction="ignore")
+                writer = csv.DictWriter(fh, fieldnames=self._header(name, columns), extrasaction="ignore")
                 writer.writerows(rows)
                 fh.flush()
                 os.fsync(fh.fileno())
+
+    def _header(self, name: str, columns: list[str]) -> list[str]:
+        """The columns this run's file was created with (a resumed older run keeps its format)."""
+        with (self.path / name).open(newline="") as fh:
+            header = next(csv.reader(fh), None)
+        return header or columns
 
     def write_summary(self, text: str) -> None:
         (self.path / SUMMARY).write_text(text)
@@ -110,6 +120,9 @@ class RunStore:
             warnings.warn(f"{target}: last line is incomplete (interrupted write); it was ignored", stacklevel=2)
             lines = lines[:-1]
         frame = pd.read_csv(io.StringIO("".join(lines)), keep_default_na=False, na_values=[""])
+        for column, default in OPTIONAL_COLUMNS.items():
+            if column not in frame:
+                frame[column] = default
         return frame
 
     def cases(self) -> "Any":
@@ -122,3 +135,10 @@ class RunStore:
         if not (self.path / CASES).exists():
             return set()
         return set(self.cases()["case_id"].astype(str))
+
+    def finished_keys(self) -> set[tuple[str, int]]:
+        """(case id, repetition) of every recorded case."""
+        if not (self.path / CASES).exists():
+            return set()
+        cases = self.cases()
+        return set(zip(cases["case_id"].astype(str), cases["repetition"].astype(int)))

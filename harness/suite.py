@@ -47,6 +47,18 @@ class Timing:
     serial_baseline: bool = True  # time parallel=False builds at 1 thread: the speedup denominator
     roof: bool = True  # measure the triad curve in every worker
     roof_max_bytes: int = 1 << 30  # largest triad footprint of the roof curve
+    repetitions: int = 1  # run every group this many times, interleaved (rep 1 of all groups, then rep 2, ...)
+    max_seconds: float = 0.0  # adaptive effort: budget per group for extra rounds when its leader is undecided
+
+    def max_looks(self) -> int:
+        """Looks at the data an adaptive group may take (1 when adaptive effort is off): after
+        min_repeats measured rounds, then each time the rounds double, up to max_rounds."""
+        if self.max_seconds <= 0:
+            return 1
+        looks, n = 1, max(self.min_repeats, 1)
+        while n * 2 <= max(self.max_rounds, self.min_repeats):
+            looks, n = looks + 1, n * 2
+        return looks
 
 
 @dataclass(frozen=True)
@@ -266,6 +278,8 @@ def _timing(section: dict[str, Any]) -> Timing:
         values[key] = value
     if values["min_repeats"] < 1:
         raise SuiteError("timing.min_repeats must be >= 1")
+    if values["repetitions"] < 1:
+        raise SuiteError("timing.repetitions must be >= 1")
     return Timing(**values)
 
 

@@ -1,4 +1,4 @@
-"""The markdown summary a sweep writes at its end: per group, layouts ranked by median time."""
+"""The plain summary a sweep writes when nothing can be ranked: per group, cases by median time."""
 
 from __future__ import annotations
 
@@ -7,34 +7,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 from tabulate import tabulate
-
-#: A case whose median is below this multiple of the empty kernel's time (dispatch plus fork/join)
-#: is flagged overhead-bound: its time says more about the call than about the layout.
-OVERHEAD_MULTIPLE = 10.0
-
-
-def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, harness_overhead_ns: float) -> dict[str, Any]:
-    """Median, IQR, bandwidth, percent of roof and GFLOP/s of one case from its measured samples."""
-    out = dict(record)
-    out["samples"] = len(ns)
-    out["harness_overhead_ns"] = harness_overhead_ns
-    if not ns:
-        return out
-    arr = np.asarray(ns, dtype=float)
-    median = float(np.median(arr))
-    q75, q25 = np.percentile(arr, [75, 25])
-    out["median_ns"] = median
-    out["iqr_ns"] = float(q75 - q25)
-    out["gbps"] = record["traffic_bytes"] / median if median else None  # bytes/ns = GB/s
-    out["gflops"] = record["flops"] / median if median else None
-    if roof is not None:
-        roof_gbps = roof.at(record["footprint_bytes"]) / 1e9
-        out["roof_gbps"] = roof_gbps
-        out["pct_roof"] = 100.0 * out["gbps"] / roof_gbps if roof_gbps else None
-    if record.get("overhead_ns"):
-        out["overhead_bound"] = bool(median < OVERHEAD_MULTIPLE * record["overhead_ns"])
-    return out
-
 
 def _fmt(value: Any, spec: str) -> str:
     if value is None or (isinstance(value, float) and np.isnan(value)):
@@ -67,17 +39,8 @@ def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
     ok = cases[(cases["status"] == "ok") & (cases["kernel"] != "triad")] if len(cases) else cases
     for (kernel, grid, dtype, threads), grp in ok.groupby(["kernel", "grid", "dtype", "threads"], sort=False):
         grp = grp.sort_values("median_ns")
-        slowest = grp["median_ns"].max()
-        best = grp.iloc[0]
-        worst = grp.iloc[-1]
         lines.append(f"## {kernel}, {grid}, {dtype}, {threads} thread(s)")
         lines.append("")
-        if len(grp) > 1:
-            lines.append(
-                f"`{best['layout']}` ({best['schedule']}, {best['build']}) runs best; the slowest, `{worst['layout']}` "
-                f"({worst['schedule']}, {worst['build']}), takes {worst['median_ns'] / best['median_ns']:.1f}x as long."
-            )
-            lines.append("")
         rows = []
         for _, r in grp.iterrows():
             flags = []
@@ -89,10 +52,10 @@ def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
                 [
                     r["layout"], r["schedule"], r["build"], _fmt(r["median_ns"] / 1e6, ".3f"),
                     _fmt(r["iqr_ns"] / r["median_ns"], ".1%"), _fmt(r.get("gbps"), ".1f"), _fmt(r.get("pct_roof"), ".0f"),
-                    _fmt(r.get("gflops"), ".2f"), _fmt(slowest / r["median_ns"], ".2f"), " ".join(flags),
+                    _fmt(r.get("gflops"), ".2f"), " ".join(flags),
                 ]
             )
-        headers = ["layout", "schedule", "build", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "x slowest", "flags"]
+        headers = ["layout", "schedule", "build", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "flags"]
         lines.append(tabulate(rows, headers=headers, tablefmt="github", disable_numparse=True))
         lines.append("")
     bad = cases[cases["status"] != "ok"] if len(cases) else cases

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import multiprocessing
 import os
 import queue as queue_module
@@ -20,7 +22,8 @@ from kernels.errors import StridewiseError
 from harness.roof import RoofCurve
 from harness.store import RunStore, RunStoreError
 from harness.suite import Suite, SuiteError, load_suite, parse_suite
-from harness.summary import case_statistics, render_summary
+from harness.metrics import case_statistics, probe_best_bandwidth
+from harness.summary import render_summary
 from harness.worker import WorkerPlan, worker_environment, worker_main
 
 EXIT_INTERRUPTED = {signal.SIGINT: 130, signal.SIGTERM: 143}
@@ -89,6 +92,7 @@ def run_sweep(
     resume: str | None = None,
     quiet: bool = False,
     no_vector_report: bool = False,
+    repeat: int | None = None,
 ) -> int:
     """Run (or resume) a sweep; returns the exit status."""
     fingerprint = machine.fingerprint()
@@ -108,8 +112,12 @@ def run_sweep(
             print(f"stridewise: warning: resuming on machine {fingerprint['machine_id']}, the run began on "
                   f"{old.get('fingerprint', {}).get('machine_id')}", file=sys.stderr)
         metadata = old
+        reps = int(old.get("suite", {}).get("timing", {}).get("repetitions", 1))
+        suite = replace(suite, timing=replace(suite.timing, repetitions=reps))
     else:
         suite = load_suite(suite_arg)
+        if repeat is not None:
+            suite = replace(suite, timing=replace(suite.timing, repetitions=repeat))
         suite_text = _suite_text(suite_arg)
         store = RunStore(Path(out) if out else default_run_dir(suite, fingerprint))
         if (store.path / "cases.csv").exists():
@@ -126,8 +134,8 @@ def run_sweep(
     gov = machine.governor_warning(fingerprint["cpufreq"])
     if gov:
         print(f"stridewise: warning: {gov}", file=sys.stderr)
-    done = store.finished_case_ids() if resume else set()
-    todo = [g for g in groups if not all(c.id in done for c in g.cases)]
+    done = store.finished_keys() if resume else set()
+    todo = [g for g in groups if not all((c.id, g.repetition) in done for c in g.cases)]
     if not metadata:
         metadata = {
             "suite": suite.as_dict(),
@@ -293,21 +301,23 @@ def _record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, A
             by_case[case_id].append(ns)
         rec = keys[case_id]
         samples.append({**{k: rec[k] for k in ("case_id", "kernel", "schedule", "build", "layout", "dtype", "grid", "threads")},
-                        "round": rnd, "position": pos, "phase": phase, "ns": ns})
-    probes = []  # (footprint, bytes/s) of the group's own triad probes
+                        "round": rnd, "position": pos, "phase": phase, "ns": ns, "repetition": result["repetition"]})
+    probes = []  # (footprint, best bytes/s) of the group's own triad probes
     for rec in result["records"]:
         ns = by_case.get(rec["case_id"], [])
         if rec["kernel"] == "triad" and ns:
-            probes.append((rec["footprint_bytes"], rec["traffic_bytes"] / (sorted(ns)[len(ns) // 2] * 1e-9)))
+            probes.append((rec["footprint_bytes"], probe_best_bandwidth(ns, rec["traffic_bytes"])))
     probe_curve = RoofCurve(result["threads"], *map(tuple, zip(*sorted(probes)))) if probes else roof
     cases = []
     for rec in result["records"]:
         row = case_statistics(rec, by_case.get(rec["case_id"], []), probe_curve, result["harness_overhead_ns"])
         row["order_seed"] = result["order_seed"]
+        row["repetition"] = result["repetition"]
         cases.append(row)
     store.append(cases, samples)
     metadata["groups"][result["group"]] = {
         "rounds": result["rounds"],
+        "looks": result["looks"],
         "harness_overhead_ns": result["harness_overhead_ns"],
         "timer_overhead_ns": result["timer_overhead_ns"],
         "flush_ns": result["flush_ns"],

@@ -24,6 +24,7 @@ class GroupSamples:
     rounds: int = 0
     harness_overhead_ns: float = 0.0  # median per-sample time spent outside the kernel call
     flush_ns: float = 0.0  # median per-sample cold-cache eviction time (0 when off)
+    looks: int = 1  # times the adaptive rule was consulted (1: never extended)
 
 
 def _measure(call: Callable[[], Any]) -> int:
@@ -40,12 +41,22 @@ def sample_rounds(
     before_sample: Callable[[], Any] | None = None,
     on_round: Callable[[int], None] | None = None,
     prepare: dict[str, Callable[[], Any]] | None = None,
+    first_round: int = 0,
+    wants_more: Callable[[list[tuple[str, int, int, str, int]]], bool] | None = None,
+    measure: Callable[[Callable[[], Any]], int] = _measure,
 ) -> GroupSamples:
     """Warm-up rounds, then measured rounds until every case has ``min_repeats`` samples and at
     least ``min_seconds`` of measured time (or ``max_rounds``). Raises Interrupted on stop.
 
     ``before_sample`` runs before every sample (cache eviction), ``prepare[case]`` before each
     sample of that case (restoring inputs it overwrites); neither is inside the timed region.
+    Round ids start at ``first_round`` (repetitions of a group get disjoint ids).
+
+    Adaptive effort: when ``timing.max_seconds`` > 0 and ``wants_more`` is given, the stopping
+    point is a look: ``wants_more(rows)`` decides whether to double the measured rounds, as long
+    as the doubled count stays within ``max_rounds`` and the time measured so far, doubled, within
+    ``max_seconds``. Looks happen only at min_repeats x 2**k rounds, so their number is bounded
+    by ``Timing.max_looks()``, which the ranking's significance level accounts for.
     """
     prepare = prepare or {}
     out = GroupSamples()
@@ -57,6 +68,9 @@ def sample_rounds(
     flushes: list[int] = []
     total_rounds = 0
     measured = 0
+    target = timing.min_repeats
+    out.looks = 1
+    started = time.perf_counter_ns()
     while True:
         phase = "warmup" if total_rounds < timing.warmup else "measure"
         rng.shuffle(ids)
@@ -71,9 +85,9 @@ def sample_rounds(
                 if before_sample is not None:
                     before_sample()
                 flush_ns += time.perf_counter_ns() - f0
-            ns = _measure(calls[case_id])
+            ns = measure(calls[case_id])
             kernel_ns += ns
-            out.rows.append((case_id, total_rounds, position, phase, ns))
+            out.rows.append((case_id, first_round + total_rounds, position, phase, ns))
             if phase == "measure":
                 spent[case_id] += ns
             if should_stop():
@@ -87,7 +101,13 @@ def sample_rounds(
             measured += 1
         if on_round is not None:
             on_round(total_rounds)
-        enough = measured >= timing.min_repeats and min(spent.values()) >= timing.min_seconds * 1e9
+        enough = measured >= target and min(spent.values()) >= timing.min_seconds * 1e9
+        if enough and wants_more is not None and timing.max_seconds > 0:
+            elapsed = (time.perf_counter_ns() - started) * 1e-9
+            if measured * 2 <= timing.max_rounds and elapsed * 2 <= timing.max_seconds and wants_more(out.rows):
+                target = measured * 2
+                out.looks += 1
+                continue
         if enough or measured >= max(timing.max_rounds, timing.min_repeats):
             break
     out.rounds = measured

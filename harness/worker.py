@@ -207,6 +207,14 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
                 rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
     _add_roof_probes(group, records, calls)
     seed = f"{plan.seed}:{group.label}"
+    wants_more = None
+    if group.kernel != CONVERT and plan.timing.max_seconds > 0:
+        from harness.adaptive import LOOK_ALPHA, leader_undecided
+
+        layout_of = {cid: r["layout"] for cid, r in records.items()
+                     if r["build"] == "parallel" and r["kernel"] == group.kernel and cid in calls}
+        look_alpha = LOOK_ALPHA / plan.timing.max_looks()
+        wants_more = lambda rows: leader_undecided(rows, layout_of, look_alpha)  # noqa: E731
     sampled = sample_rounds(  # raises Interrupted on stop
         dict(calls),
         plan.timing,
@@ -215,10 +223,14 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
         before_sample=flush,
         on_round=lambda r: queue.put(("round", r)),
         prepare=prepare,
+        first_round=group.repetition * REPETITION_ROUNDS,
+        wants_more=wants_more,
     )
     return {
         "group": group.label,
         "threads": group.threads,
+        "repetition": group.repetition,
+        "looks": sampled.looks,
         "records": list(records.values()),
         "samples": sampled.rows,
         "rounds": sampled.rounds,
@@ -247,6 +259,9 @@ def _restorer(problem: Any) -> Any:
 
     return restore
 
+
+#: Round ids of repetition r start at r times this, so a case's rounds never collide across repetitions.
+REPETITION_ROUNDS = 100_000
 
 #: At most this many triad probes per group (distinct footprints beyond it share the nearest).
 MAX_PROBES = 3

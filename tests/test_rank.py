@@ -79,7 +79,7 @@ def test_best_schedule_is_chosen_on_one_half_and_reported_on_the_other() -> None
     lucky = pd.Series(np.where(rounds % 2 == 0, 1e5, 3e5), index=rounds)  # fast only in choosing rounds
     steady = pd.Series(np.full(20, 2e5), index=rounds)
     cases, samples = _frames({("var.z.y.x", "lucky"): lucky, ("var.z.y.x", "steady"): steady})
-    ranked = rank_group(cases, samples, RankOptions())
+    ranked, _ = rank_group(cases, samples, RankOptions())
     row = ranked.iloc[0]
     assert row["schedule"] == "lucky" and row["median_ns"] == pytest.approx(3e5)  # its luck is not reported
     assert row["gbps"] == pytest.approx(1_000_000 / 3e5) and row["pct_roof"] == pytest.approx(100 * (1e6 / 3e5) / 10)
@@ -107,9 +107,12 @@ def test_markdown_tables_read_back_equal_the_numbers() -> None:
         parsed = pd.read_csv(io.StringIO("\n".join(l.strip().strip("|") for l in lines)), sep="|", skipinitialspace=True)
         parsed.columns = [c.strip() for c in parsed.columns]
         assert [s.strip() for s in parsed["layout"]] == list(grp["layout"])
-        np.testing.assert_allclose(parsed["median ms"].astype(float), grp["median_ns"] / 1e6, rtol=1e-3)
-        np.testing.assert_allclose(parsed["x slowest"].astype(float), grp["speedup_vs_slowest"], atol=0.006)
-        np.testing.assert_allclose(parsed["x reference"].astype(float), grp["speedup_vs_reference"], atol=0.006)
+        for column, name, scale, tol in (("median ms", "median_ns", 1e-6, 1e-3), ("x best", "time_vs_best", 1, 0.006),
+                                         ("x reference", "speedup_vs_reference", 1, 0.006)):
+            cells = parsed[column].str.extract(r"([\d.]+) \[([\d.]+), ([\d.]+)\]").astype(float)
+            for part, suffix in zip(range(3), ("", "_lo", "_hi")):
+                np.testing.assert_allclose(cells[part], grp[name + suffix] * scale, rtol=tol, atol=tol)
+            assert (cells[1] <= cells[0]).all() and (cells[0] <= cells[2]).all()
     headline = re.search(r"At 1 thread\(s\), `(\S+)` runs best for k1[^;]*; the slowest layout, `(\S+)`, takes ([\d.]+)x as long", text)
     assert headline and headline.group(1) == "var.z.y.x" and headline.group(2) == "var.y.x.z"
     assert float(headline.group(3)) == pytest.approx(4.0, rel=0.1)

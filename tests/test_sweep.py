@@ -243,3 +243,41 @@ def test_automatic_conversions_price_layout_switching(tmp_path: Path) -> None:
     assert winners, summary
     if winners[1] != winners[2]:  # on a tiny grid both kernels may well pick the same layout
         assert {f"{winners[1]}->{winners[2]}", f"{winners[2]}->{winners[1]}"} <= set(conversions["layout"])
+
+
+@pytest.mark.slow
+def test_repeat_runs_every_group_again_and_reports_agreement(tmp_path: Path) -> None:
+    out = tmp_path / "run"
+    proc = _sweep(str(_suite(tmp_path, '["laplacian"]', repeats=6)), "--repeat", "2", "--out", str(out))
+    assert proc.returncode == 0, proc.stderr
+    store = RunStore(out)
+    cases, samples = store.cases(), store.samples()
+    kernels = cases[cases["kernel"] != "triad"]
+    assert sorted(kernels["repetition"].unique()) == [0, 1]
+    assert kernels.groupby("case_id").size().eq(2).all()  # one row per case and repetition
+    rounds = samples.groupby("repetition")["round"].agg(["min", "max"])
+    assert rounds.loc[0, "max"] < rounds.loc[1, "min"]  # disjoint round ids: pairs never cross runs
+    summary = (out / "summary.md").read_text()
+    assert "## Run-to-run agreement" in summary and "| laplacian" in summary.split("## Run-to-run agreement")[1]
+    assert RunStore(out).metadata()["suite"]["timing"]["repetitions"] == 2
+
+
+@pytest.mark.parametrize("args, message", [(["--repeat", "0"], "--repeat must be a positive"),
+                                           (["--repeat", "2", "--resume", "somewhere"], "cannot change a run being resumed")])
+def test_bad_repeat_is_a_one_line_error(args: list[str], message: str) -> None:
+    proc = _sweep(*args)
+    assert proc.returncode == 2 and message in proc.stderr and proc.stderr.count("\n") == 1
+
+
+@pytest.mark.slow
+def test_two_runs_of_one_machine_rank_together(tmp_path: Path) -> None:
+    """Pooling repeated runs: each run is a block of rounds (no duplicate-label crash) and the
+    report says how far the runs agree."""
+    runs = []
+    for name in ("a", "b"):
+        out = tmp_path / name
+        assert _sweep(str(_suite(tmp_path, '["laplacian"]', repeats=6)), "--out", str(out)).returncode == 0
+        runs.append(str(out))
+    proc = subprocess.run([sys.executable, "-m", "harness", "rank", *runs], capture_output=True, text=True, cwd=ROOT)
+    assert proc.returncode == 0, proc.stderr
+    assert "## Run-to-run agreement" in proc.stdout and "| 2 " in proc.stdout.split("## Run-to-run agreement")[1]

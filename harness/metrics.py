@@ -1,0 +1,128 @@
+"""The figures of a case, computed in one place: median, IQR, GB/s, % of roof, GFLOP/s, ratios.
+
+Column names mean one thing everywhere: ``median_ns`` in ``cases.csv`` is over all measured
+rounds of the case; in a ranking the same figure over its reporting rounds is ``median_ns``
+of the ranking table (the README says which file holds which).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from harness.intervals import NAN, Interval, Rounds, median_interval, percentile, ratio_interval
+
+#: A case whose median is below this multiple of the empty kernel's time (dispatch plus fork/join)
+#: is flagged overhead-bound: its time says more about the call than about the layout.
+OVERHEAD_MULTIPLE = 10.0
+#: Labels of roof probes and of serial (parallel=False) builds inside a group's Rounds.
+PROBE_PREFIX = "probe:"
+SERIAL_PREFIX = "serial:"
+
+
+def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, harness_overhead_ns: float) -> dict[str, Any]:
+    """Median, IQR, bandwidth, percent of roof and GFLOP/s of one case from all its measured samples."""
+    out = dict(record)
+    out["samples"] = len(ns)
+    out["harness_overhead_ns"] = harness_overhead_ns
+    if not ns:
+        return out
+    arr = np.asarray(ns, dtype=float)
+    median = float(np.median(arr))
+    q75, q25 = np.percentile(arr, [75, 25])
+    out["median_ns"] = median
+    out["iqr_ns"] = float(q75 - q25)
+    out["gbps"] = record["traffic_bytes"] / median if median else None  # bytes/ns = GB/s
+    out["gflops"] = record["flops"] / median if median else None
+    if roof is not None:
+        roof_gbps = roof.at(record["footprint_bytes"]) / 1e9
+        out["roof_gbps"] = roof_gbps
+        out["pct_roof"] = 100.0 * out["gbps"] / roof_gbps if roof_gbps else None
+    if record.get("overhead_ns"):
+        out["overhead_bound"] = bool(median < OVERHEAD_MULTIPLE * record["overhead_ns"])
+    return out
+
+
+def probe_best_bandwidth(ns: list[int] | np.ndarray, traffic_bytes: float) -> float:
+    """The roof a probe measured: its best round, in bytes/s.
+
+    From memory: STREAM reports the best rate over its trials; a median would let one slow
+    stretch of a shared machine pull the roof under the kernels it is compared with.
+    """
+    arr = np.asarray(ns, dtype=float)
+    return float(traffic_bytes / (arr.min() * 1e-9)) if arr.size else float("nan")
+
+
+def _columns(name: str, values: list[Interval]) -> dict[str, list[float]]:
+    return {name: [v.value for v in values], f"{name}_lo": [v.lo for v in values], f"{name}_hi": [v.hi for v in values]}
+
+
+def _nearest_probe(probes: pd.DataFrame | None, rounds: Rounds | None, footprint: float) -> tuple[str, float] | None:
+    """Label (in ``rounds``) and traffic of the probe nearest in footprint, if any probe was sampled."""
+    if probes is None or probes.empty or rounds is None:
+        return None
+    present = probes[[PROBE_PREFIX + c in rounds.labels for c in probes["case_id"]]]
+    if present.empty or not np.isfinite(footprint):
+        return None
+    row = present.iloc[int(np.argmin(np.abs(np.log(present["footprint_bytes"].to_numpy(float) / footprint))))]
+    return PROBE_PREFIX + row["case_id"], float(row["traffic_bytes"])
+
+
+def roof_share(rounds: Rounds, layout: str, traffic: float, probe: tuple[str, float], key: str,
+               confidence: float) -> tuple[float, Interval]:
+    """Percent of roof: the layout's median bandwidth over the probe's best round, paired by round."""
+    label, probe_traffic = probe
+    t = rounds.column(layout)
+    p = rounds.column(label)
+    point = 100.0 * (traffic / np.median(t)) / (probe_traffic / p.min())
+    idx = rounds.resample(key)
+    boot = 100.0 * (traffic / np.median(t[idx], axis=1)) / (probe_traffic / p[idx].min(axis=1))
+    roof_gbps = probe_traffic / p.min()
+    return roof_gbps, percentile(float(point), boot, confidence)
+
+
+def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | None, reference: str | None,
+                   key: str, confidence: float) -> dict[str, Any]:
+    """Columns of a ranked group (rows in rank order): every figure with its interval."""
+    out: dict[str, Any] = {
+        "gbps": (frame["traffic_bytes"] / frame["median_ns"]).to_numpy(),
+        "gflops": (frame["flops"] / frame["median_ns"]).to_numpy(),
+    }
+    layouts = list(frame["layout"])
+    leader = layouts[0]
+    medians, vs_best, vs_ref, roof, roof_gbps = [], [], [], [], []
+    for row in frame.itertuples():
+        layout = row.layout
+        if rounds is None or layout not in rounds.labels:
+            medians.append(Interval(row.median_ns, np.nan, np.nan))
+            vs_best.append(Interval(row.median_ns / frame["median_ns"].iloc[0], np.nan, np.nan))
+            ref = frame.loc[frame["layout"] == reference, "median_ns"] if reference else pd.Series(dtype=float)
+            vs_ref.append(Interval(float(ref.iloc[0]) / row.median_ns, np.nan, np.nan) if len(ref) else NAN)
+            share = 100.0 * (row.traffic_bytes / row.median_ns) / row.roof_gbps if row.roof_gbps else np.nan
+            roof.append(Interval(share, np.nan, np.nan))
+            roof_gbps.append(row.roof_gbps)
+            continue
+        medians.append(median_interval(rounds, layout, f"{key}|median|{layout}", confidence))
+        vs_best.append(ratio_interval(rounds, layout, leader, f"{key}|best|{layout}", confidence))
+        if reference is not None and reference in rounds.labels:
+            vs_ref.append(ratio_interval(rounds, reference, layout, f"{key}|ref|{layout}", confidence))
+        else:
+            vs_ref.append(NAN)
+        probe = _nearest_probe(probes, rounds, row.footprint_bytes)
+        if probe is None:
+            share = 100.0 * (row.traffic_bytes / row.median_ns) / row.roof_gbps if row.roof_gbps else np.nan
+            roof.append(Interval(share, np.nan, np.nan))
+            roof_gbps.append(row.roof_gbps)
+        else:
+            gbps, share_interval = roof_share(rounds, layout, row.traffic_bytes, probe, f"{key}|roof|{layout}", confidence)
+            roof.append(share_interval)
+            roof_gbps.append(gbps)
+    out.update(_columns("median_ns", medians))
+    out.update(_columns("time_vs_best", vs_best))
+    out.update(_columns("speedup_vs_reference", vs_ref))
+    out.update(_columns("pct_roof", roof))
+    out["roof_gbps"] = roof_gbps
+    out["above_roof"] = [bool(np.isfinite(r.value) and r.value > 100.0) for r in roof]
+    return out

@@ -1,0 +1,103 @@
+"""Thread scaling: speedups with intervals, and whether the winner really changes with threads.
+
+Speedup of a layout at t threads is its 1-thread median over its t-thread median (the same
+threaded build and its best schedule at each count; the schedule may differ, and the table says
+which). The two medians come from different worker processes, so their rounds are resampled
+independently. A change of winner between thread counts is claimed only when, at each count,
+that count's winner is separated from the other count's winner by the ranking's own paired test
+(one-sided Wilcoxon on per-round log-ratios beyond the floor, at alpha): an intersection of two
+tests at level alpha is itself a test at level alpha.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from harness.intervals import Interval, Rounds, combine
+from harness.metrics import SERIAL_PREFIX
+from harness.stats import wilcoxon_greater
+
+
+def separated(rounds: Rounds, slower: str, faster: str, floor: float) -> float:
+    """p-value of "``slower`` takes more than (1 + floor) times ``faster``", paired by round."""
+    d = np.log(rounds.column(slower)) - np.log(rounds.column(faster)) - math.log1p(floor)
+    return wilcoxon_greater(d)[1] if d.size else 1.0
+
+
+def _speedup(r1: Rounds, a: str, rt: Rounds, b: str, key: str, confidence: float) -> Interval:
+    return combine([(r1, a), (rt, b)], lambda m: m[0] / m[1], key, confidence)
+
+
+def scaling_and_flips(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds], options: Any) -> tuple[pd.DataFrame, list[str]]:
+    """Per layout and thread count: speedup over 1 thread, efficiency and the ratio to the best
+    1-thread parallel=False build, each with an interval; and one sentence per kernel on flips."""
+    rows, flips = [], []
+    for (machine, kernel, grid, dtype), grp in table.groupby(["machine", "kernel", "grid", "dtype"], sort=False):
+        one_key = (machine, kernel, grid, dtype, 1)
+        r1 = rounds.get(one_key)
+        one = grp[grp["threads"] == 1].set_index("layout")
+        for _, r in grp.iterrows():
+            threads = int(r["threads"])
+            key = (machine, kernel, grid, dtype, threads)
+            rt = rounds.get(key)
+            tag = f"{machine}|{kernel}|{grid}|{dtype}|{threads}|{r['layout']}"
+            speed = serial = Interval(np.nan, np.nan, np.nan)
+            if r1 is not None and rt is not None and r["layout"] in r1.labels and r["layout"] in rt.labels:
+                speed = _speedup(r1, r["layout"], rt, r["layout"], f"speedup|{tag}", options.confidence)
+            elif r["layout"] in one.index:
+                speed = Interval(float(one.loc[r["layout"], "median_ns"]) / r["median_ns"], np.nan, np.nan)
+            serial_label = SERIAL_PREFIX + r["layout"]
+            if r1 is not None and rt is not None and serial_label in r1.labels and r["layout"] in rt.labels:
+                serial = _speedup(r1, serial_label, rt, r["layout"], f"serial|{tag}", options.confidence)
+            flags = []
+            if np.isfinite(speed.lo) and speed.lo < 1 and speed.hi > threads and threads > 1:
+                flags.append("inconclusive")
+            elif np.isfinite(speed.lo) and speed.lo > threads:
+                flags.append("superlinear")
+            rows.append({"machine": machine, "kernel": kernel, "grid": grid, "dtype": dtype, "layout": r["layout"],
+                         "threads": threads, "schedule": r["schedule"],
+                         "schedule_1thread": one.loc[r["layout"], "schedule"] if r["layout"] in one.index else None,
+                         "median_ns": r["median_ns"],
+                         "speedup": speed.value, "speedup_lo": speed.lo, "speedup_hi": speed.hi,
+                         "efficiency": speed.value / threads, "efficiency_lo": speed.lo / threads,
+                         "efficiency_hi": speed.hi / threads,
+                         "vs_serial_build": serial.value, "vs_serial_build_lo": serial.lo, "vs_serial_build_hi": serial.hi,
+                         "flags": " ".join(flags)})
+        sentence = _flip_sentence(kernel, grid, dtype, machine, grp, rounds, options)
+        if sentence:
+            flips.append(sentence)
+    return pd.DataFrame(rows), flips
+
+
+def _flip_sentence(kernel: str, grid: str, dtype: str, machine: str, grp: pd.DataFrame,
+                   rounds: dict[tuple[Any, ...], Rounds], options: Any) -> str | None:
+    winners = {int(t): g.sort_values("rank").iloc[0]["layout"] for t, g in grp.groupby("threads")}
+    if len(winners) < 2:
+        return None
+    where = f"{kernel} ({grid}, {dtype}, machine {machine})"
+    counts = sorted(winners)
+    changes = [(a, b) for a, b in zip(counts, counts[1:]) if winners[a] != winners[b]]
+    if not changes:
+        return f"{where}: the same layout, `{winners[counts[0]]}`, leads at every thread count."
+    parts = []
+    for a, b in changes:
+        wa, wb = winners[a], winners[b]
+        ra, rb = rounds.get((machine, kernel, grid, dtype, a)), rounds.get((machine, kernel, grid, dtype, b))
+        if ra is None or rb is None or not {wa, wb} <= set(ra.labels) or not {wa, wb} <= set(rb.labels):
+            parts.append(f"`{wa}` leads at {a} thread(s) and `{wb}` at {b}, but one of them has no samples at the "
+                         "other count: no separable change can be claimed")
+            continue
+        pa = separated(ra, wb, wa, options.floor)
+        pb = separated(rb, wa, wb, options.floor)
+        if pa < options.alpha and pb < options.alpha:
+            parts.append(f"the winner changes from `{wa}` at {a} thread(s) to `{wb}` at {b} "
+                         f"(each separated from the other at its count: p = {pa:.2g}, {pb:.2g})")
+        else:
+            parts.append(f"`{wa}` leads at {a} thread(s) and `{wb}` at {b}, but no separable change: at "
+                         f"{a if pa >= options.alpha else b} thread(s) the two cannot be told apart "
+                         f"(p = {max(pa, pb):.2g}, alpha {options.alpha:g}, floor {options.floor:.0%})")
+    return f"{where}: " + "; ".join(parts) + "."
