@@ -70,6 +70,24 @@ def build_parser() -> argparse.ArgumentParser:
     gate_p.add_argument("--format", default="md", choices=("md", "csv", "json"))
     gate_p.add_argument("--out", help="write the report here instead of standard output")
     gate_p.set_defaults(func=_gate)
+    vs_p = sub.add_parser(
+        "versus", help="gate: two code versions measured side by side in one run; exit 1 on significant slowdowns",
+        description="Measure the kernels of two code versions (git revisions or directories holding kernels/) in one "
+        "run, alternating them round by round, and gate head against base with a paired test. Exit 0 pass, "
+        "1 regression found, 2 unusable input.")
+    vs_p.add_argument("base", help="base version: a git revision (e.g. origin/main) or a directory holding kernels/")
+    vs_p.add_argument("head", nargs="?", default=None,
+                      help="head version, likewise (default: the kernels this stridewise runs, i.e. the working tree)")
+    vs_p.add_argument("--suite", default="smoke", help="suite file or built-in name (default: smoke)")
+    vs_p.add_argument("--rounds", type=int, default=20, help="measured round pairs per group (default 20)")
+    vs_p.add_argument("--threshold", type=float, default=0.05, help="slowdown that counts, as a fraction (default 0.05)")
+    vs_p.add_argument("--confidence", type=float, default=0.95, help="confidence level (default 0.95)")
+    vs_p.add_argument("--cases", action="append", default=[], metavar="GLOB", help="gate only case ids matching (repeatable)")
+    vs_p.add_argument("--repo", default=".", help="git repository the revisions belong to (default: the current directory)")
+    vs_p.add_argument("--out", help="run directory to create (default: results/runs/<time>-versus-<machine>)")
+    vs_p.add_argument("--format", default="md", choices=("md", "csv", "json"))
+    vs_p.add_argument("--quiet", action="store_true", help="no progress lines")
+    vs_p.set_defaults(func=_versus)
     base_p = sub.add_parser("baseline", help="manage gate baselines")
     base_sub = base_p.add_subparsers(dest="action", metavar="ACTION", parser_class=_Parser)
     base_sub.required = True
@@ -97,6 +115,58 @@ def _gate(args: argparse.Namespace) -> int:
         raise StridewiseError(f"--normalise must be 'triad' or 'case:KERNEL|SCHEDULE|BUILD|LAYOUT', got '{norm}'")
     options = GateOptions(args.threshold, args.confidence, tuple(args.cases), norm)
     return run_gate(args.baseline, args.current, options, args.format, args.out)
+
+
+def _versus(args: argparse.Namespace) -> int:
+    import json
+    import os
+    from datetime import datetime, timezone
+    from pathlib import Path
+
+    from harness import machine
+    from harness.gate import EXIT_PASS, EXIT_REGRESSION, STEP_SUMMARY_ENV
+    from harness.suite import load_suite
+    from harness.sweep import _suite_text
+    from harness.versus import run_versus
+    from harness.versus_gate import paired_gate, render_versus
+
+    if not 0 < args.threshold:
+        raise StridewiseError(f"--threshold must be a positive fraction, got {args.threshold}")
+    if not 0.5 <= args.confidence < 1:
+        raise StridewiseError(f"--confidence must be in [0.5, 1), got {args.confidence}")
+    if args.rounds < 6:
+        raise StridewiseError(f"--rounds must be at least 6 (the paired test needs them), got {args.rounds}")
+    # The suite is checked against this process's kernels; extra kernel modules kept beside a
+    # version directory's kernels/ (STRIDEWISE_KERNEL_MODULES) are found there, after our own.
+    for version in (args.head, args.base):
+        if version is not None and Path(version).is_dir():
+            sys.path.append(str(Path(version).resolve()))
+    suite = load_suite(args.suite)
+    out = Path(args.out) if args.out else Path("results") / "runs" / (
+        f"{datetime.now(timezone.utc).strftime('%Y%m%dT%H%M%SZ')}-versus-{machine.fingerprint()['machine_id']}")
+    store = run_versus(args.base, args.head, suite, _suite_text(args.suite), out, args.rounds, Path(args.repo), args.quiet)
+    table = paired_gate(store.samples(), store.cases(), args.threshold, args.confidence, tuple(args.cases))
+    if table.empty:
+        raise StridewiseError("no case ran in both versions; nothing to gate")
+    metadata = store.metadata()
+    report = render_versus(table, metadata, args.threshold, args.confidence)
+    (out / "gate.md").write_text(report)
+    table.to_csv(out / "gate.csv", index=False)
+    if args.format == "md":
+        sys.stdout.write(report)
+    elif args.format == "csv":
+        sys.stdout.write(table.to_csv(index=False))
+    else:
+        sys.stdout.write(json.dumps({"versions": metadata.get("versions"), "cases": json.loads(table.to_json(orient="records"))},
+                                    indent=2) + "\n")
+    if os.environ.get(STEP_SUMMARY_ENV):
+        with open(os.environ[STEP_SUMMARY_ENV], "a") as fh:
+            fh.write(report)
+    slower = table[table["verdict"] == "slower"]["case_id"].tolist()
+    if slower:
+        print(f"stridewise: regression in {len(slower)} case(s): {', '.join(slower)}", file=sys.stderr)
+        return EXIT_REGRESSION
+    return EXIT_PASS
 
 
 def _baseline_save(args: argparse.Namespace) -> int:

@@ -36,6 +36,12 @@ BASELINE_DIR = Path("results") / "baselines"
 BOOTSTRAP = 400
 #: The environment variable CI systems read as a step's markdown summary.
 STEP_SUMMARY_ENV = "GITHUB_STEP_SUMMARY"
+STORED_DRIFT_NOTE = (
+    "Mode: stored baseline. This run is compared with numbers stored from other runs, so a drift of the machine "
+    "between those runs and this one (measured on a shared 2-core VM: up to 1.66x for one case) is "
+    "indistinguishable from a change of the code; the interval allows only for the spread between the baseline's "
+    "own runs. On a shared runner, compare versions side by side in one run: `stridewise versus BASE [HEAD]`."
+)
 EXIT_PASS, EXIT_REGRESSION = 0, 1  # unusable input raises GateError: exit 2 through the CLI
 FINGERPRINT_FIELDS = ("cpu_model", "logical_cpus", "physical_cores", "usable_cores", "memory_bytes", "numa_nodes", "numba", "numpy", "python")
 
@@ -290,6 +296,8 @@ def render_gate(frame: pd.DataFrame, summary: dict[str, Any], fmt: str) -> str:
         f"confidence {summary['confidence']:.0%}, Holm correction; baseline of {summary['baseline_runs']} runs on "
         f"`{summary['baseline_machine']}`, current on `{summary['current_machine']}`. "
         f"{summary['slower']} slower, {summary['faster']} faster.",
+        "",
+        STORED_DRIFT_NOTE,
         "",
     ]
     lines += [f"> warning: {w}" for w in summary["warnings"]]

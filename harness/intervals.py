@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import zlib
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -62,19 +62,29 @@ class Rounds:
     labels: tuple[str, ...]
     ns: np.ndarray
     blocks: np.ndarray
+    name: str = ""  # the group's identity: seeds its one bootstrap draw, shared by all its figures
+    _memo: dict = field(default_factory=dict, compare=False, repr=False)  # resamples per key, drawn once
 
     @classmethod
-    def from_series(cls, series: dict[str, pd.Series], blocks: pd.Series | None = None) -> Rounds:
+    def from_series(cls, series: dict[str, pd.Series], blocks: pd.Series | None = None, name: str = "") -> Rounds:
         """Inner-join per-label series indexed by round (rounds missing for any label are dropped)."""
         frame = pd.concat(series, axis=1, join="inner").dropna()
         b = np.zeros(len(frame), dtype=int) if blocks is None else blocks.reindex(frame.index).fillna(0).to_numpy(int)
-        return cls(tuple(frame.columns), frame.to_numpy(float), b)
+        return cls(tuple(frame.columns), frame.to_numpy(float), b, name)
 
     def column(self, label: str) -> np.ndarray:
         return self.ns[:, self.labels.index(label)]
 
-    def resample(self, key: str, replicates: int = REPLICATES) -> np.ndarray:
-        """Row indices of ``replicates`` bootstrap resamples, shape (replicates, rounds)."""
+    def resample(self, key: str, replicates: int | None = None) -> np.ndarray:
+        """Row indices of ``replicates`` bootstrap resamples, shape (replicates, rounds); the same
+        key gives the same resamples, so every figure of a group can share one draw."""
+        replicates = replicates or REPLICATES
+        memo_key = ("rows", key, replicates)
+        if memo_key not in self._memo:
+            self._memo[memo_key] = self._draw(key, replicates)
+        return self._memo[memo_key]
+
+    def _draw(self, key: str, replicates: int) -> np.ndarray:
         rng = _rng(key)
         n = len(self.ns)
         blocks = np.unique(self.blocks)
@@ -88,11 +98,15 @@ class Rounds:
             out[r] = np.resize(rows, n)  # blocks of unequal size: keep the round count fixed
         return out
 
-    def medians(self, key: str, replicates: int = REPLICATES) -> np.ndarray:
+    def medians(self, key: str, replicates: int | None = None) -> np.ndarray:
         """Bootstrap medians per label, shape (replicates, labels)."""
+        replicates = replicates or REPLICATES
         if len(self.ns) == 0:
             return np.full((replicates, len(self.labels)), np.nan)
-        return np.median(self.ns[self.resample(key, replicates)], axis=1)
+        memo_key = ("medians", key, replicates)
+        if memo_key not in self._memo:
+            self._memo[memo_key] = np.median(self.ns[self.resample(key, replicates)], axis=1)
+        return self._memo[memo_key]
 
 
 def percentile(point: float, replicates: np.ndarray, confidence: float = CONFIDENCE) -> Interval:
@@ -130,6 +144,6 @@ def combine(parts: Sequence[tuple[Rounds, str]], fn: Callable[[list[np.ndarray]]
     drawn: dict[int, np.ndarray] = {}  # parts of one group share its resamples (they are paired)
     for n, (r, _) in enumerate(parts):
         if id(r) not in drawn:
-            drawn[id(r)] = r.medians(f"{key}|{n}")
+            drawn[id(r)] = r.medians(r.name or f"{key}|{n}")
     boots = [drawn[id(r)][:, r.labels.index(label)] for r, label in parts]
     return percentile(float(fn(points)[0]), fn(boots), confidence)

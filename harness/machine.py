@@ -38,6 +38,14 @@ def cpu_model() -> str:
     return platform.processor() or platform.machine()
 
 
+def usable_cpu_list() -> list[int]:
+    """The CPUs this process may run on (its affinity), lowest first; [] where that is unknown."""
+    try:
+        return sorted(os.sched_getaffinity(0))
+    except AttributeError:  # not Linux
+        return []
+
+
 def usable_cores() -> int:
     """Cores this process may use: its CPU affinity, capped by a cgroup CPU quota if one is set."""
     try:

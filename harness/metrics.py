@@ -104,10 +104,11 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
             roof.append(Interval(share, np.nan, np.nan))
             roof_gbps.append(row.roof_gbps)
             continue
-        medians.append(median_interval(rounds, layout, f"{key}|median|{layout}", confidence))
-        vs_best.append(ratio_interval(rounds, layout, leader, f"{key}|best|{layout}", confidence))
+        # One bootstrap draw per group serves every figure of it (joint resampling of its rounds).
+        medians.append(median_interval(rounds, layout, key, confidence))
+        vs_best.append(ratio_interval(rounds, layout, leader, key, confidence))
         if reference is not None and reference in rounds.labels:
-            vs_ref.append(ratio_interval(rounds, reference, layout, f"{key}|ref|{layout}", confidence))
+            vs_ref.append(ratio_interval(rounds, reference, layout, key, confidence))
         else:
             vs_ref.append(NAN)
         probe = _nearest_probe(probes, rounds, row.footprint_bytes)
@@ -116,7 +117,7 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
             roof.append(Interval(share, np.nan, np.nan))
             roof_gbps.append(row.roof_gbps)
         else:
-            gbps, share_interval = roof_share(rounds, layout, row.traffic_bytes, probe, f"{key}|roof|{layout}", confidence)
+            gbps, share_interval = roof_share(rounds, layout, row.traffic_bytes, probe, key, confidence)
             roof.append(share_interval)
             roof_gbps.append(gbps)
     out.update(_columns("median_ns", medians))

@@ -37,7 +37,7 @@ def _conversion_rounds(runs: Any, machine: str, grid: str, dtype: str, threads: 
         s = samples[(samples["case_id"] == cid) & (samples["machine"] == machine)]
         if len(s):
             blocks = s.drop_duplicates("round").set_index("round")["block"] if "block" in s else None
-            out[layout] = Rounds.from_series({layout: s.set_index("round")["ns"]}, blocks)
+            out[layout] = Rounds.from_series({layout: s.set_index("round")["ns"]}, blocks, name=f"{machine}|{cid}")
     return out
 
 

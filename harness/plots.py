@@ -70,11 +70,13 @@ def plot_ranking(ranking: "object", directory: str) -> list[str]:
             fig, ax = plt.subplots(figsize=(6, 4))
             for layout, lg in sc.groupby("layout"):
                 lg = lg.sort_values("threads")
-                ax.plot(lg["threads"], lg["speedup"], marker="o", label=layout)
+                err = np.vstack([lg["speedup"] - lg["speedup_lo"], lg["speedup_hi"] - lg["speedup"]]) \
+                    if "speedup_lo" in lg else None
+                ax.errorbar(lg["threads"], lg["speedup"], yerr=err, marker="o", capsize=3, label=layout)
             top = int(sc["threads"].max())
             ax.plot([1, top], [1, top], color="grey", ls="--", lw=1, label="ideal")
             ax.set_xlabel("threads")
-            ax.set_ylabel("speedup over the single-threaded build")
+            ax.set_ylabel("speedup over 1 thread (95 % interval)")
             ax.set_title(f"{kernel} {grid} {dtype}: thread scaling")
             ax.legend(fontsize=7)
             fig.tight_layout()

@@ -180,7 +180,9 @@ def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions,
     if probes is not None and not probes.empty:
         for cid, g in samples[samples["case_id"].isin(probes["case_id"])].groupby("case_id"):
             series[metrics.PROBE_PREFIX + cid] = g.set_index("round")["ns"].loc[lambda x: x.index.isin(report)]
-    rounds = Rounds.from_series(series, blocks)
+    first = par.iloc[0]
+    name = f"{first.get('machine', '')}|{first['kernel']}|{first['grid']}|{first['dtype']}|{first['threads']}"
+    rounds = Rounds.from_series(series, blocks, name)
     return _finish(frame, rounds, probes, options), rounds
 
 
@@ -195,7 +197,7 @@ def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | N
     frame["plain"] = frame["layout"].map(_is_plain)
     frame = frame.sort_values(["tier", "median_ns"], na_position="last").reset_index(drop=True)
     frame["rank"] = np.arange(1, len(frame) + 1)
-    key = f"{case.iloc[0]['kernel']}|{case.iloc[0]['grid']}|{case.iloc[0]['dtype']}|{case.iloc[0]['threads']}"
+    key = rounds.name if rounds is not None else ""
     frame = frame.assign(**metrics.ranked_figures(frame, rounds, probes, options.reference, key, options.confidence))
     return frame.drop(columns=["traffic_bytes", "flops", "footprint_bytes"])
 
@@ -271,8 +273,6 @@ def repetition_agreement(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Roun
     """For groups measured in several runs or repetitions (blocks): between-run spread of each
     layout's median, Kendall's tau between the layout orders of every two blocks, and whether
     every block has the same leader."""
-    from scipy.stats import kendalltau
-
     rows = []
     for key, r in rounds.items():
         blocks = np.unique(r.blocks)
@@ -280,6 +280,8 @@ def repetition_agreement(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Roun
                    if l in r.labels]
         if blocks.size < 2 or len(layouts) < 2:
             continue
+        from scipy.stats import kendalltau  # imported here: it takes seconds, and most reports need none
+
         medians = np.array([[np.median(r.column(l)[r.blocks == b]) for l in layouts] for b in blocks])
         taus = [kendalltau(medians[i], medians[j]).statistic for i in range(len(blocks)) for j in range(i + 1, len(blocks))]
         leaders = {layouts[int(np.argmin(m))] for m in medians}

@@ -87,15 +87,19 @@ def _inversions(grp: pd.DataFrame) -> str | None:
 
 
 def _power_note(grp: pd.DataFrame, alpha: float) -> str | None:
-    """Say so when the rounds are too few for the paired test to separate anything."""
+    """Say so when the rounds are too few for the paired test to separate anything (at the alpha
+    the tiers used: divided by the looks of adaptive effort)."""
     n = int(grp["rounds"].min()) if "rounds" in grp and grp["rounds"].notna().all() else 0
     m = len(grp) - 1
-    if m < 1 or n == 0 or m * 2.0**-n < alpha:
+    looks = int(grp["looks"].max()) if "looks" in grp else 1
+    level = alpha / looks
+    if m < 1 or n == 0 or m * 2.0**-n < level:
         return None
-    needed = 2 * math.ceil(math.log2(m / alpha))
+    needed = 2 * math.ceil(math.log2(m / level))
+    per_look = f" (alpha {alpha:g} over {looks} looks)" if looks > 1 else ""
     return (f"**Too few rounds to separate layouts:** with {n} reporting rounds the smallest possible p-value is "
-            f"{2.0**-n:.3g}, so {m} Holm-corrected comparisons can never reach alpha {alpha:g}; the tiers above carry "
-            f"no information. Run at least {needed} measured rounds (timing.min_repeats).")
+            f"{2.0**-n:.3g}, so {m} Holm-corrected comparisons can never reach {level:.3g}{per_look}; the tiers above "
+            f"carry no information. Run at least {needed} measured rounds (timing.min_repeats).")
 
 
 def _machine_header(machine: str, md: dict[str, Any]) -> list[str]:

@@ -30,7 +30,7 @@ CASE_COLUMNS = [
     "compile_s", "loaded_from_cache", "vectorised", "vector_bits", "order_seed",
 ]
 #: Columns added after the first format; a reader fills them in when an older run lacks them.
-OPTIONAL_COLUMNS = {"repetition": 0}
+OPTIONAL_COLUMNS = {"repetition": 0, "version": ""}
 
 
 class RunStoreError(StridewiseError):

@@ -54,14 +54,13 @@ def worker_main(plan: WorkerPlan, queue: Any, stop: Any) -> None:
         queue.put(("exit", None))
 
 
-def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
+def start_worker(plan: WorkerPlan) -> dict[str, Any]:
+    """Limit other thread pools, set numba's, pin if asked, start the pool; describe the result."""
     import numba
     import numpy as np
     from threadpoolctl import threadpool_info, threadpool_limits
 
-    from harness.roof import measure_curve
-    from harness.timing import Interrupted
-    from kernels.parallel import FILL, evict_caches
+    from kernels.parallel import FILL
 
     threadpool_limits(limits=1, user_api="blas")  # other libraries' pools cannot oversubscribe
     numba.set_num_threads(plan.threads)
@@ -70,22 +69,25 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
         os.sched_setaffinity(0, affinity[: plan.threads])
         affinity = sorted(os.sched_getaffinity(0))
     FILL.parallel(np.zeros(64, np.uint8), np.uint8(0), plan.threads)  # starts the pool
-    queue.put(
-        (
-            "worker",
-            {
-                "threads": plan.threads,
-                "pid": os.getpid(),
-                "threading_layer": numba.threading_layer(),
-                "numba_num_threads": numba.config.NUMBA_NUM_THREADS,
-                "affinity": affinity,
-                "pinned": plan.pin,
-                "other_pools": [
-                    {k: p.get(k) for k in ("user_api", "internal_api", "num_threads")} for p in threadpool_info()
-                ],
-            },
-        )
-    )
+    return {
+        "threads": plan.threads,
+        "pid": os.getpid(),
+        "threading_layer": numba.threading_layer(),
+        "numba_num_threads": numba.config.NUMBA_NUM_THREADS,
+        "affinity": affinity,
+        "pinned": plan.pin,
+        "other_pools": [{k: p.get(k) for k in ("user_api", "internal_api", "num_threads")} for p in threadpool_info()],
+    }
+
+
+def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
+    import numpy as np
+
+    from harness.roof import measure_curve
+    from harness.timing import Interrupted
+    from kernels.parallel import evict_caches
+
+    queue.put(("worker", start_worker(plan)))
     if plan.timing.roof:
         queue.put(("roof", measure_curve(plan.threads, plan.timing.roof_max_bytes).as_dict()))
     flush = None
@@ -117,10 +119,21 @@ def _schedule(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], 
     return schedule
 
 
-def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, queue: Any) -> dict[str, Any]:
+@dataclass
+class Prepared:
+    """A group ready to time: a record per case, the bound calls of the valid ones, input restorers."""
+
+    records: dict[str, dict[str, Any]]
+    calls: dict[str, Any]
+    prepare: dict[str, Any]
+    compiles: list[dict[str, Any]]
+
+
+def prepare_group(group: Group, plan: WorkerPlan, seen_reports: dict, probes: bool = True) -> Prepared:
+    """Build, compile and validate every case of a group (never timed); add roof probes if asked."""
     import numpy as np
 
-    from harness.timing import overhead_ns, sample_rounds
+    from harness.timing import overhead_ns
     from kernels.base import Bound
     from kernels.grid import Extents
     from kernels.jit import ensure_compiled, vector_report
@@ -205,7 +218,16 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
                     prepare[case.id] = _restorer(problem)
             except Exception as exc:  # noqa: BLE001 - recorded as the case's error
                 rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
-    _add_roof_probes(group, records, calls)
+    if probes:
+        _add_roof_probes(group, records, calls)
+    return Prepared(records, calls, prepare, compiles)
+
+
+def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, queue: Any) -> dict[str, Any]:
+    from harness.timing import overhead_ns, sample_rounds
+
+    prepared = prepare_group(group, plan, seen_reports)
+    records, calls, prepare, compiles = prepared.records, prepared.calls, prepared.prepare, prepared.compiles
     seed = f"{plan.seed}:{group.label}"
     wants_more = None
     if group.kernel != CONVERT and plan.timing.max_seconds > 0:

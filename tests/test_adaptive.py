@@ -6,11 +6,20 @@ import random
 
 import numpy as np
 import pandas as pd
+import pytest
 
 from harness.adaptive import leader_undecided
 from harness.rank import RankOptions, rank_group
 from harness.suite import Timing
 from harness.timing import sample_rounds
+
+@pytest.fixture(autouse=True)
+def few_replicates(monkeypatch: pytest.MonkeyPatch) -> None:
+    """These tests judge tiers only; a small bootstrap keeps the intervals they do not read cheap."""
+    from harness import intervals
+
+    monkeypatch.setattr(intervals, "REPLICATES", 20)
+
 
 POLICY = Timing(warmup=0, min_repeats=8, min_seconds=0.0, max_rounds=128, max_seconds=1e9)
 LAYOUTS = ("var.z.y.x", "y.x.z.var", "z.var.y.x")

@@ -260,6 +260,10 @@ def test_repeat_runs_every_group_again_and_reports_agreement(tmp_path: Path) -> 
     summary = (out / "summary.md").read_text()
     assert "## Run-to-run agreement" in summary and "| laplacian" in summary.split("## Run-to-run agreement")[1]
     assert RunStore(out).metadata()["suite"]["timing"]["repetitions"] == 2
+    # Several run directories of one machine pool as blocks too (the same run twice: 4 blocks).
+    proc = subprocess.run([sys.executable, "-m", "harness", "rank", str(out), str(out)], capture_output=True, text=True, cwd=ROOT)
+    assert proc.returncode == 0, proc.stderr
+    assert "| 4 " in proc.stdout.split("## Run-to-run agreement")[1]
 
 
 @pytest.mark.parametrize("args, message", [(["--repeat", "0"], "--repeat must be a positive"),
@@ -267,17 +271,3 @@ def test_repeat_runs_every_group_again_and_reports_agreement(tmp_path: Path) -> 
 def test_bad_repeat_is_a_one_line_error(args: list[str], message: str) -> None:
     proc = _sweep(*args)
     assert proc.returncode == 2 and message in proc.stderr and proc.stderr.count("\n") == 1
-
-
-@pytest.mark.slow
-def test_two_runs_of_one_machine_rank_together(tmp_path: Path) -> None:
-    """Pooling repeated runs: each run is a block of rounds (no duplicate-label crash) and the
-    report says how far the runs agree."""
-    runs = []
-    for name in ("a", "b"):
-        out = tmp_path / name
-        assert _sweep(str(_suite(tmp_path, '["laplacian"]', repeats=6)), "--out", str(out)).returncode == 0
-        runs.append(str(out))
-    proc = subprocess.run([sys.executable, "-m", "harness", "rank", *runs], capture_output=True, text=True, cwd=ROOT)
-    assert proc.returncode == 0, proc.stderr
-    assert "## Run-to-run agreement" in proc.stdout and "| 2 " in proc.stdout.split("## Run-to-run agreement")[1]

@@ -1,0 +1,95 @@
+"""The gate's paired test for a side-by-side run: head against base, round by round.
+
+For each case measured in both versions, the per-round log-ratio d = log(t_head / t_base) of
+adjacent slots goes to two one-sided Wilcoxon signed-rank tests: "head slower than base by more
+than the threshold" (d - log(1 + threshold) > 0) and "head faster by more than the threshold".
+Holm's correction runs over the gated cases for each direction; the level is 1 - confidence.
+The ratio shown is head's median over base's, with a bootstrap interval over paired rounds.
+"""
+
+from __future__ import annotations
+
+import fnmatch
+import math
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from tabulate import tabulate
+
+from harness.intervals import Rounds, ratio_interval
+from harness.stats import holm, wilcoxon_greater
+
+DRIFT_NOTE = (
+    "Mode: side by side. Both versions ran in this one run on this machine, alternating one round of a group "
+    "at a time (base, head, then head, base, ...), and each comparison is paired by round. It cancels machine "
+    "drift slower than a round (load from other jobs, frequency and thermal changes, a noisy neighbour that comes "
+    "and goes); it cannot see effects that differ between the two worker processes themselves (page placement, "
+    "buffer alignment), which the threshold must cover."
+)
+
+
+def paired_gate(samples: pd.DataFrame, cases: pd.DataFrame, threshold: float, confidence: float,
+                globs: tuple[str, ...] = ()) -> pd.DataFrame:
+    """One row per gated case: medians, head/base with its interval, adjusted p-values, verdict."""
+    alpha = 1 - confidence
+    measured = samples[samples["phase"] == "measure"]
+    ok = cases[(cases["status"] == "ok") & (cases["kernel"] != "triad")]
+    present = {v: set(ok[ok["version"] == v]["case_id"]) for v in ("base", "head")}
+    ids = sorted(present["base"] | present["head"])
+    if globs:
+        ids = [c for c in ids if any(fnmatch.fnmatchcase(c, g) for g in globs)]
+    rows, slower_p, faster_p, tested = [], [], [], []
+    shift = math.log1p(threshold)
+    for cid in ids:
+        row: dict[str, Any] = {"case_id": cid}
+        if cid not in present["base"] or cid not in present["head"]:
+            row["verdict"] = "new" if cid not in present["base"] else "missing"
+            rows.append(row)
+            continue
+        mine = measured[measured["case_id"] == cid]
+        series = {v: mine[mine["version"] == v].set_index("round")["ns"] for v in ("base", "head")}
+        rounds = Rounds.from_series(series, name=f"versus|{cid}")
+        d = np.log(rounds.column("head")) - np.log(rounds.column("base"))
+        ratio = ratio_interval(rounds, "head", "base", rounds.name, confidence)
+        row.update(base_ms=float(np.median(rounds.column("base"))) / 1e6, head_ms=float(np.median(rounds.column("head"))) / 1e6,
+                   ratio=ratio.value, ratio_lo=ratio.lo, ratio_hi=ratio.hi, rounds=int(d.size))
+        slower_p.append(wilcoxon_greater(d - shift)[1] if d.size else 1.0)
+        faster_p.append(wilcoxon_greater(-d - shift)[1] if d.size else 1.0)
+        tested.append(len(rows))
+        rows.append(row)
+    for index, p_slow, p_fast in zip(tested, holm(slower_p), holm(faster_p)):
+        rows[index].update(p_slower=p_slow, p_faster=p_fast,
+                           verdict="slower" if p_slow < alpha else "faster" if p_fast < alpha else "unchanged")
+    return pd.DataFrame(rows)
+
+
+def render_versus(table: pd.DataFrame, metadata: dict[str, Any], threshold: float, confidence: float) -> str:
+    versions = metadata.get("versions", {})
+
+    def describe(label: str) -> str:
+        v = versions.get(label, {})
+        commit = f" ({v['commit'][:12]})" if v.get("commit") else ""
+        return f"`{v.get('spec', '?')}`{commit}, kernels `{v.get('kernels_source_hash', '?')}`"
+
+    slower = table[table["verdict"] == "slower"] if len(table) else table
+    verdict = f"FAIL: regression in {len(slower)} case(s)" if len(slower) else "PASS: no case slower beyond the threshold"
+    lines = [
+        f"# Side-by-side gate: {verdict}", "",
+        f"Base {describe('base')}; head {describe('head')}; machine `{metadata.get('fingerprint', {}).get('machine_id', '?')}`, "
+        f"{metadata.get('rounds', '?')} paired rounds per group.", "",
+        DRIFT_NOTE, "",
+        f"A case is `slower` when head takes more than {1 + threshold:.2f}x base's time in a one-sided paired Wilcoxon "
+        f"signed-rank test, Holm-corrected over the cases at level {1 - confidence:.2g} (`faster` likewise); "
+        f"head/base is the ratio of medians with a {confidence:.0%} bootstrap interval over paired rounds.", "",
+    ]
+    rows = []
+    for _, r in table.iterrows():
+        if r["verdict"] in ("new", "missing"):
+            rows.append([r["case_id"], "", "", "", "", r["verdict"]])
+            continue
+        rows.append([r["case_id"], f"{r['base_ms']:.4g}", f"{r['head_ms']:.4g}",
+                     f"{r['ratio']:.3f} [{r['ratio_lo']:.3f}, {r['ratio_hi']:.3f}]", f"{r['p_slower']:.2g}", r["verdict"]])
+    lines.append(tabulate(rows, headers=["case", "base ms", "head ms", "head/base", "p slower (Holm)", "verdict"],
+                          tablefmt="github", disable_numparse=True))
+    return "\n".join(lines) + "\n"

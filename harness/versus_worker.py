@@ -1,0 +1,105 @@
+"""The worker of a side-by-side comparison: one code version's kernels, driven one round at a time.
+
+The parent starts one of these per code version and thread count (a fresh interpreter, not a
+multiprocessing child, which would import the parent's main module and with it the parent's
+kernels) and tells each, in turn, to prepare a group or to run one round of it; the other version
+waits, so the two never run at the same time. Only the standard library is imported at module
+level: the version's ``kernels`` directory must come first on ``sys.path`` before anything
+imports ``kernels``. Started as ``python -P -m harness.versus_worker VERSION_DIR FD THREADS CPUS``,
+CPUS being the comma-separated cores both versions' workers are bound to.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import sys
+import traceback
+from typing import Any
+
+
+def main(argv: list[str]) -> None:
+    """Entry point: answer the parent's commands on the inherited connection until told to stop."""
+    from multiprocessing.connection import Connection
+
+    version_dir, fd, threads = argv[0], int(argv[1]), int(argv[2])
+    cpus = [int(c) for c in argv[3].split(",")] if len(argv) > 3 and argv[3] else []
+    if cpus and hasattr(os, "sched_setaffinity"):
+        os.sched_setaffinity(0, cpus)  # before any thread pool starts: its threads inherit the mask
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides when to stop
+    sys.path.insert(0, version_dir)
+    conn = Connection(fd)
+    try:
+        plan = conn.recv()
+        _serve(version_dir, threads, plan, conn)
+    except BaseException:  # noqa: BLE001 - reported to the parent, which records it
+        conn.send(("crash", traceback.format_exc()))
+
+
+def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> None:
+    import kernels
+
+    here = os.path.realpath(os.path.dirname(kernels.__file__))
+    wanted = os.path.realpath(os.path.join(version_dir, "kernels"))
+    if here != wanted:
+        raise RuntimeError(f"kernels were imported from {here}, not from the version under test at {wanted}")
+    import numpy as np
+
+    from harness.plan import CaseKey, Group
+    from harness.suite import Timing
+    from harness.worker import WorkerPlan, prepare_group, start_worker
+    from kernels.jit import SOURCE_HASH
+
+    timing = Timing(**plan["timing"])
+    wplan = WorkerPlan(threads=threads, groups=(), timing=timing, seed=plan["seed"], pin=plan["pin"],
+                       kernel_options=tuple((k, tuple(map(tuple, v))) for k, v in plan["kernel_options"]),
+                       inspect_vectorisation=False, flush_bytes=plan["flush_bytes"])
+    info = start_worker(wplan)
+    conn.send(("hello", {**info, "kernels_dir": here, "kernels_source_hash": SOURCE_HASH}))
+    flush = None
+    if timing.cold_cache:
+        from kernels.parallel import evict_caches
+
+        flush_buf = np.zeros(plan["flush_bytes"] // 8, dtype=np.int64)
+        flush = lambda: evict_caches(flush_buf)  # noqa: E731
+    prepared = group = None
+    while True:
+        message = conn.recv()
+        if message[0] == "stop":
+            return
+        if message[0] == "prepare":
+            g = message[1]
+            group = Group(g["kernel"], g["grid"], g["dtype"], g["threads"], tuple(CaseKey(**c) for c in g["cases"]))
+            prepared = None  # release the previous group's buffers first
+            prepared = prepare_group(group, wplan, {}, probes=False)
+            conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles}))
+        elif message[0] == "round":
+            _, rnd, order = message
+            # Fresh buffers for every round: where a buffer lands (page alignment, huge pages, the
+            # offset between input and output streams) can change a case's time by tens of percent
+            # and stays fixed for a buffer's life. Drawn anew each round it becomes noise that the
+            # pairing sees, not a bias of one version's process. The code is the same, and the new
+            # problems are validated again before they are timed.
+            prepared = None
+            prepared = prepare_group(group, wplan, {}, probes=False)
+            rows = []
+            for position, case_id in enumerate(c for c in order if c in prepared.calls):
+                if case_id in prepared.prepare:
+                    prepared.prepare[case_id]()
+                if flush is not None:
+                    flush()
+                ns = _measure(prepared.calls[case_id])
+                rows.append((case_id, rnd, position, ns))
+            conn.send(("samples", rows))
+        else:
+            raise RuntimeError(f"unknown command {message[0]!r}")
+
+
+def _measure(call: Any) -> int:
+    from harness.timing import _measure as timed
+
+    return timed(call)
+
+
+if __name__ == "__main__":
+    main(sys.argv[1:])
