@@ -135,9 +135,9 @@ def test_a_deliberately_slowed_schedule_fails_the_gate_on_real_timings(tmp_path:
     slow, fast = tmp_path / "slow", tmp_path / "fast"
     assert _cli("sweep", "--quiet", str(suite), "--out", str(slow), env={**env, "STRIDEWISE_TEST_SLOW_KNOB": "1"}).returncode == 0
     assert _cli("sweep", "--quiet", str(suite), "--out", str(fast), env=env).returncode == 0
-    # The knob triples the work (+200 %); a 50 % threshold leaves room for runner noise. Runs on this
-    # shared VM drift up to 2x between each other, which would hide even that from a plain stored
-    # baseline, so every time is normalised by the same run's unslowed cyclic case.
+    # The knob repeats the work 8 times; a 50 % threshold leaves room for runner noise. Runs on this
+    # shared VM drift up to 2x between each other (which is why `stridewise versus` exists), so
+    # every time is also normalised by the same run's unslowed cyclic case.
     ref = ("--normalise", "case:slowed|cyclic|parallel|var.z.y.x")
     failed = _cli("gate", str(baseline), str(slow), "--threshold", "0.5", "--format", "json", *ref)
     assert failed.returncode == 1, failed.stderr
@@ -183,7 +183,17 @@ def smoke_run(smoke_runs: list[Path]) -> Path:
 
 
 @pytest.mark.slow
-def test_bad_gate_input_exits_2(tmp_path: Path, smoke_run: Path) -> None:
+def test_bad_gate_input_exits_2(tmp_path: Path, smoke_run: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """In-process through the CLI's main(): the same exit codes and messages as the command."""
+    from types import SimpleNamespace
+
+    from harness.cli import main
+
+    def _cli(*args: str) -> SimpleNamespace:
+        code = main(list(args))
+        out, err = capsys.readouterr()
+        return SimpleNamespace(returncode=code, stdout=out, stderr=err)
+
     run = smoke_run
     corrupted = tmp_path / "corrupt.json"
     corrupted.write_text('{"format": "stridewise-baseline", "cases": {"x": {"medians_ns": ')
@@ -219,12 +229,14 @@ def test_pytest_benchmark_json_imports_ranks_and_is_refused_by_the_gate_without_
     round times only when asked for raw data; this test makes both files with that plugin.
     """
     common = [sys.executable, "-m", "pytest", "-q", "tests/bench/test_bench_kernels.py", "-k", "laplacian and not yd8",
-              "--benchmark-enable", "--benchmark-min-rounds=5", "-p", "no:cacheprovider"]
+              "--benchmark-enable", "--benchmark-min-rounds=5", "-p", "no:cacheprovider", "-n", "0"]
+    env = {k: v for k, v in os.environ.items() if not k.startswith("PYTEST_XDIST")}  # a plain pytest, not a worker
     with_data = tmp_path / "with.json"
-    assert subprocess.run([*common, f"--benchmark-json={with_data}"], cwd=ROOT, capture_output=True, text=True).returncode == 0
+    assert subprocess.run([*common, f"--benchmark-json={with_data}"], cwd=ROOT, capture_output=True, text=True,
+                          env=env).returncode == 0
     storage = tmp_path / "storage"
     assert subprocess.run([*common, "--benchmark-autosave", f"--benchmark-storage={storage}"], cwd=ROOT,
-                          capture_output=True, text=True).returncode == 0
+                          capture_output=True, text=True, env=env).returncode == 0
     (without_data,) = storage.rglob("*.json")
     for source, raw in ((with_data, True), (without_data, False)):
         run = tmp_path / f"run-{raw}"

@@ -58,12 +58,13 @@ def _versus(tmp_path: Path, base: Path | str, head: Path | str, *extra: str) -> 
 
 @pytest.mark.slow
 def test_a_slowed_kernel_fails_and_the_unchanged_one_passes(tmp_path: Path) -> None:
-    """One side-by-side run: head's test kernel sweeps every row twice (EXTRA = 1.0; at this size
-    the second sweep partly hits cache, so well under 2x the time, but far beyond the threshold);
-    levelcoef is the same code in both versions and must not be called slower. (Identical trees
+    """One side-by-side run: head's test kernel sweeps every row four times (EXTRA = 3.0; at this
+    size the repeats partly hit cache, so under 4x the time, but far beyond the threshold even with
+    the other test process as a neighbour); levelcoef is the same code in both versions and must
+    not be called slower. (Identical trees
     passing is what .ci/run checks on every change, with this checkout against HEAD.)"""
-    proc = _versus(tmp_path, make_version(tmp_path / "a", 0.0), make_version(tmp_path / "b", 1.0), "--format", "json",
-                   "--rounds", "10")
+    proc = _versus(tmp_path, make_version(tmp_path / "a", 0.0), make_version(tmp_path / "b", 3.0), "--format", "json",
+                   "--rounds", "12")
     assert proc.returncode == 1, proc.stdout + proc.stderr
     verdicts = {c["case_id"]: c["verdict"] for c in json.loads(proc.stdout)["cases"]}
     assert {c for c, v in verdicts.items() if v == "slower"} == {c for c in verdicts if c.startswith("extra_work|")}
