@@ -27,3 +27,11 @@ def test_readme_suite_example_is_a_valid_suite() -> None:
 def test_shipped_suites_load(path: Path | str) -> None:
     suite = load_suite(str(path))
     assert suite.layouts and suite.kernels and suite.sizes
+
+
+@pytest.mark.parametrize("args", [[], ["only-one"], ["--stored", "smoke"]])
+def test_ci_gate_script_refuses_a_wrong_argument_count(args: list[str]) -> None:
+    import subprocess
+
+    proc = subprocess.run(["sh", str(ROOT / "docs" / "ci-gate.sh"), *args], capture_output=True, text=True)
+    assert proc.returncode == 2 and proc.stderr.startswith("usage:")
