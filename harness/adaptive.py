@@ -14,13 +14,12 @@ a union bound; tested with identical layouts in tests/test_adaptive.py).
 
 from __future__ import annotations
 
-import math
 from collections import defaultdict
 from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from harness.stats import holm, wilcoxon_greater
+from harness.stats import holm, slower_beyond, split_rounds
 
 #: Decision level and floor of the look (the ranking's defaults).
 LOOK_ALPHA = 0.05
@@ -42,7 +41,7 @@ def leader_undecided(rows: Sequence[tuple[str, int, int, str, int]], layout_of: 
         if phase == "measure" and case_id in layout_of:
             by_case[case_id][rnd] = ns
     rounds = sorted({r for samples in by_case.values() for r in samples})
-    choose, report = (rounds, rounds) if len(rounds) < 4 else (rounds[0::2], rounds[1::2])
+    choose, report = split_rounds(rounds)
     best: dict[str, tuple[float, str]] = {}
     for case_id, samples in by_case.items():
         chosen = [samples[r] for r in choose if r in samples]
@@ -59,6 +58,5 @@ def leader_undecided(rows: Sequence[tuple[str, int, int, str, int]], layout_of: 
     pvalues = []
     for other in others:
         common = [r for r in report if r in by_case[leader] and r in by_case[other]]
-        d = np.log([by_case[other][r] / by_case[leader][r] for r in common]) - math.log1p(floor)
-        pvalues.append(wilcoxon_greater(d)[1] if common else 1.0)
+        pvalues.append(slower_beyond([by_case[other][r] for r in common], [by_case[leader][r] for r in common], floor))
     return holm(pvalues)[0] >= alpha  # the runner-up, Holm-adjusted over the step as the tiers do

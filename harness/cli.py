@@ -103,13 +103,18 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def _gate(args: argparse.Namespace) -> int:
-    from harness.gate import GateOptions, run_gate
-
+def _check_gate_levels(args: argparse.Namespace) -> None:
+    """--threshold and --confidence, shared by both gates."""
     if not 0 < args.threshold:
         raise StridewiseError(f"--threshold must be a positive fraction, got {args.threshold}")
     if not 0.5 <= args.confidence < 1:
         raise StridewiseError(f"--confidence must be in [0.5, 1), got {args.confidence}")
+
+
+def _gate(args: argparse.Namespace) -> int:
+    from harness.gate import GateOptions, run_gate
+
+    _check_gate_levels(args)
     norm = args.normalise
     if norm not in (None, "triad") and not (norm.startswith("case:") and norm.count("|") == 3):
         raise StridewiseError(f"--normalise must be 'triad' or 'case:KERNEL|SCHEDULE|BUILD|LAYOUT', got '{norm}'")
@@ -119,21 +124,16 @@ def _gate(args: argparse.Namespace) -> int:
 
 def _versus(args: argparse.Namespace) -> int:
     import json
-    import os
-    from datetime import datetime, timezone
     from pathlib import Path
 
     from harness import machine
-    from harness.gate import EXIT_PASS, EXIT_REGRESSION, STEP_SUMMARY_ENV
+    from harness.gate import gate_verdict
     from harness.suite import load_suite
-    from harness.sweep import _suite_text
+    from harness.sweep import _suite_text, default_run_dir
     from harness.versus import run_versus
     from harness.versus_gate import paired_gate, render_versus
 
-    if not 0 < args.threshold:
-        raise StridewiseError(f"--threshold must be a positive fraction, got {args.threshold}")
-    if not 0.5 <= args.confidence < 1:
-        raise StridewiseError(f"--confidence must be in [0.5, 1), got {args.confidence}")
+    _check_gate_levels(args)
     if args.rounds < 6:
         raise StridewiseError(f"--rounds must be at least 6 (the paired test needs them), got {args.rounds}")
     # The suite is checked against this process's kernels; extra kernel modules kept beside a
@@ -142,8 +142,7 @@ def _versus(args: argparse.Namespace) -> int:
         if version is not None and Path(version).is_dir():
             sys.path.append(str(Path(version).resolve()))
     suite = load_suite(args.suite)
-    out = Path(args.out) if args.out else Path("results") / "runs" / (
-        f"{datetime.now(timezone.utc).strftime('%Y%m%dT%H%M%SZ')}-versus-{machine.fingerprint()['machine_id']}")
+    out = Path(args.out) if args.out else default_run_dir("versus", machine.fingerprint()["machine_id"])
     store = run_versus(args.base, args.head, suite, _suite_text(args.suite), out, args.rounds, Path(args.repo), args.quiet)
     table = paired_gate(store.samples(), store.cases(), args.threshold, args.confidence, tuple(args.cases))
     if table.empty:
@@ -159,14 +158,7 @@ def _versus(args: argparse.Namespace) -> int:
     else:
         sys.stdout.write(json.dumps({"versions": metadata.get("versions"), "cases": json.loads(table.to_json(orient="records"))},
                                     indent=2) + "\n")
-    if os.environ.get(STEP_SUMMARY_ENV):
-        with open(os.environ[STEP_SUMMARY_ENV], "a") as fh:
-            fh.write(report)
-    slower = table[table["verdict"] == "slower"]["case_id"].tolist()
-    if slower:
-        print(f"stridewise: regression in {len(slower)} case(s): {', '.join(slower)}", file=sys.stderr)
-        return EXIT_REGRESSION
-    return EXIT_PASS
+    return gate_verdict(table, report)
 
 
 def _baseline_save(args: argparse.Namespace) -> int:

@@ -324,10 +324,16 @@ def run_gate(baseline_path: str, currents: list[str], options: GateOptions, fmt:
         Path(out).write_text(text)
     else:
         sys.stdout.write(text)
+    return gate_verdict(frame, render_gate(frame, summary, "md"))
+
+
+def gate_verdict(frame: pd.DataFrame, markdown: str) -> int:
+    """The end of every gate: the markdown report appended to the CI step summary when one is
+    set, the slowed cases named on standard error, and the exit status."""
     step_summary = os.environ.get(STEP_SUMMARY_ENV)
     if step_summary:
         with open(step_summary, "a") as fh:
-            fh.write(render_gate(frame, summary, "md"))
+            fh.write(markdown)
     slower = frame[frame["verdict"] == "slower"]["case_id"].tolist()
     if slower:
         print(f"stridewise: regression in {len(slower)} case(s): {', '.join(slower)}", file=sys.stderr)

@@ -40,9 +40,6 @@ class Interval:
             return f"{self.value:{spec}}{suffix}"
         return f"{self.value:{spec}}{suffix} [{self.lo:{spec}}, {self.hi:{spec}}]"
 
-    def excludes(self, x: float) -> bool:
-        return bool(self.lo > x or self.hi < x)
-
 
 NAN = Interval(np.nan, np.nan, np.nan)
 

@@ -83,6 +83,12 @@ def roof_share(rounds: Rounds, layout: str, traffic: float, probe: tuple[str, fl
     return roof_gbps, percentile(float(point), boot, confidence)
 
 
+def _model_share(row: Any) -> Interval:
+    """Percent of roof from the recorded roof alone (no probe samples to pair with): no interval."""
+    share = 100.0 * (row.traffic_bytes / row.median_ns) / row.roof_gbps if row.roof_gbps else np.nan
+    return Interval(share, np.nan, np.nan)
+
+
 def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | None, reference: str | None,
                    key: str, confidence: float) -> dict[str, Any]:
     """Columns of a ranked group (rows in rank order): every figure with its interval."""
@@ -100,8 +106,7 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
             vs_best.append(Interval(row.median_ns / frame["median_ns"].iloc[0], np.nan, np.nan))
             ref = frame.loc[frame["layout"] == reference, "median_ns"] if reference else pd.Series(dtype=float)
             vs_ref.append(Interval(float(ref.iloc[0]) / row.median_ns, np.nan, np.nan) if len(ref) else NAN)
-            share = 100.0 * (row.traffic_bytes / row.median_ns) / row.roof_gbps if row.roof_gbps else np.nan
-            roof.append(Interval(share, np.nan, np.nan))
+            roof.append(_model_share(row))
             roof_gbps.append(row.roof_gbps)
             continue
         # One bootstrap draw per group serves every figure of it (joint resampling of its rounds).
@@ -113,8 +118,7 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
             vs_ref.append(NAN)
         probe = _nearest_probe(probes, rounds, row.footprint_bytes)
         if probe is None:
-            share = 100.0 * (row.traffic_bytes / row.median_ns) / row.roof_gbps if row.roof_gbps else np.nan
-            roof.append(Interval(share, np.nan, np.nan))
+            roof.append(_model_share(row))
             roof_gbps.append(row.roof_gbps)
         else:
             gbps, share_interval = roof_share(rounds, layout, row.traffic_bytes, probe, key, confidence)

@@ -31,7 +31,7 @@ import pandas as pd
 from harness import metrics
 from harness.intervals import CONFIDENCE, Rounds
 from harness.plan import CONVERT
-from harness.stats import holm, wilcoxon_greater
+from harness.stats import holm, slower_beyond, split_rounds
 from harness.store import RunStore, RunStoreError
 from kernels.errors import StridewiseError
 from kernels.layout import parse_layout
@@ -94,19 +94,11 @@ def _is_plain(layout: str) -> bool:
         return False
 
 
-def _split_rounds(rounds: list[int]) -> tuple[set[int], set[int]]:
-    ordered = sorted(rounds)
-    if len(ordered) < 4:  # too few to split: both halves use every round (noted in the report)
-        return set(ordered), set(ordered)
-    return set(ordered[0::2]), set(ordered[1::2])
-
-
 def tiers(per_round: dict[str, pd.Series], order: list[str], alpha: float, floor: float) -> dict[str, int]:
     """Tier number (1 = fastest) of each layout; see the module docstring for the algorithm."""
     remaining = list(order)
     out: dict[str, int] = {}
     tier = 0
-    shift = math.log1p(floor)
     while remaining:
         tier += 1
         leader, others = remaining[0], remaining[1:]
@@ -114,8 +106,7 @@ def tiers(per_round: dict[str, pd.Series], order: list[str], alpha: float, floor
         pvals = []
         for layout in others:
             joined = pd.concat([per_round[layout], per_round[leader]], axis=1, join="inner").dropna()
-            d = np.log(joined.iloc[:, 0].to_numpy(float)) - np.log(joined.iloc[:, 1].to_numpy(float))
-            pvals.append(wilcoxon_greater(d - shift)[1] if d.size else 1.0)
+            pvals.append(slower_beyond(joined.iloc[:, 0].to_numpy(float), joined.iloc[:, 1].to_numpy(float), floor))
         adjusted = holm(pvals)
         separated = []
         for layout, p in zip(others, adjusted):
@@ -142,7 +133,7 @@ def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions,
             rows.append({"layout": layout, "schedule": best["schedule"], "median_ns": best["median_ns"], "iqr_rel": np.nan,
                          "tier": np.nan, "rounds": 0, "case": best})
         return _finish(pd.DataFrame(rows), None, None, options), None
-    choose, report = _split_rounds(list(smp["round"].unique()))
+    choose, report = map(set, split_rounds(list(smp["round"].unique())))
     by_serial = {cid: g.set_index("round")["ns"] for cid, g in samples[samples["build"] == "serial"].groupby("case_id")} \
         if "build" in samples else {}
     by_case = {cid: g.set_index("round")["ns"] for cid, g in smp.groupby("case_id")}

@@ -11,6 +11,7 @@ import pandas as pd
 from tabulate import tabulate
 
 from harness.intervals import Interval
+from harness.metrics import OVERHEAD_MULTIPLE
 from harness.rank import Ranking
 
 FAMILY_WORDS = {"columns": "column solves", "stencils": "stencils"}
@@ -21,7 +22,8 @@ FLAG_NOTES = {
              "rounds. The byte model counts no write-allocate traffic (the STREAM convention), so a kernel that "
              "writes a smaller share of its bytes than the triad's 1 in 3 pays less of it than the triad does; "
              "where the interval includes 100 the excess is within noise.",
-    "overhead-bound": "`overhead-bound`: the median is under 10x the empty kernel's dispatch and fork/join time.",
+    "overhead-bound": f"`overhead-bound`: the median is under {OVERHEAD_MULTIPLE:g}x the empty kernel's dispatch and "
+                      "fork/join time.",
     "scalar": "`scalar`: the compiled loop has no packed vector instructions.",
 }
 

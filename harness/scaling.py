@@ -11,7 +11,6 @@ tests at level alpha is itself a test at level alpha.
 
 from __future__ import annotations
 
-import math
 from typing import Any
 
 import numpy as np
@@ -19,13 +18,7 @@ import pandas as pd
 
 from harness.intervals import Interval, Rounds, combine
 from harness.metrics import SERIAL_PREFIX
-from harness.stats import wilcoxon_greater
-
-
-def separated(rounds: Rounds, slower: str, faster: str, floor: float) -> float:
-    """p-value of "``slower`` takes more than (1 + floor) times ``faster``", paired by round."""
-    d = np.log(rounds.column(slower)) - np.log(rounds.column(faster)) - math.log1p(floor)
-    return wilcoxon_greater(d)[1] if d.size else 1.0
+from harness.stats import slower_beyond
 
 
 def _speedup(r1: Rounds, a: str, rt: Rounds, b: str, key: str, confidence: float) -> Interval:
@@ -91,8 +84,8 @@ def _flip_sentence(kernel: str, grid: str, dtype: str, machine: str, grp: pd.Dat
             parts.append(f"`{wa}` leads at {a} thread(s) and `{wb}` at {b}, but one of them has no samples at the "
                          "other count: no separable change can be claimed")
             continue
-        pa = separated(ra, wb, wa, options.floor)
-        pb = separated(rb, wa, wb, options.floor)
+        pa = slower_beyond(ra.column(wb), ra.column(wa), options.floor)
+        pb = slower_beyond(rb.column(wa), rb.column(wb), options.floor)
         if pa < options.alpha and pb < options.alpha:
             parts.append(f"the winner changes from `{wa}` at {a} thread(s) to `{wb}` at {b} "
                          f"(each separated from the other at its count: p = {pa:.2g}, {pb:.2g})")

@@ -67,3 +67,20 @@ def holm(p_values: Sequence[float]) -> list[float]:
         running = max(running, min(1.0, (m - step) * p_values[i]))
         adjusted[i] = running
     return adjusted
+
+
+def slower_beyond(slower: Sequence[float], faster: Sequence[float], floor: float) -> float:
+    """p-value of "``slower`` takes more than (1 + floor) times ``faster``", paired element by
+    element: the one-sided Wilcoxon test above on log-ratios shifted by log(1 + floor).
+    The tiers, flips, adaptive looks and the side-by-side gate all decide with this test."""
+    d = np.log(np.asarray(slower, dtype=float)) - np.log(np.asarray(faster, dtype=float)) - math.log1p(floor)
+    return wilcoxon_greater(d)[1] if d.size else 1.0
+
+
+def split_rounds(rounds: Sequence[int]) -> tuple[list[int], list[int]]:
+    """Choosing and reporting rounds: alternate positions of the sorted rounds; with fewer than
+    four, both are every round (the report says so)."""
+    ordered = sorted(rounds)
+    if len(ordered) < 4:
+        return ordered, ordered
+    return ordered[0::2], ordered[1::2]

@@ -66,9 +66,10 @@ class _Stop:
                 signal.signal(s, handler)
 
 
-def default_run_dir(suite: Suite, fingerprint: dict[str, Any]) -> Path:
+def default_run_dir(label: str, machine_id: str) -> Path:
+    """``results/runs/<UTC time>-<label>-<machine id>``."""
     stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-    return Path("results") / "runs" / f"{stamp}-{suite.name}-{fingerprint['machine_id']}"
+    return Path("results") / "runs" / f"{stamp}-{label}-{machine_id}"
 
 
 def check_memory(groups: list[Group], suite: Suite) -> None:
@@ -119,7 +120,7 @@ def run_sweep(
         if repeat is not None:
             suite = replace(suite, timing=replace(suite.timing, repetitions=repeat))
         suite_text = _suite_text(suite_arg)
-        store = RunStore(Path(out) if out else default_run_dir(suite, fingerprint))
+        store = RunStore(Path(out) if out else default_run_dir(suite.name, fingerprint["machine_id"]))
         if (store.path / "cases.csv").exists():
             raise RunStoreError(f"'{store.path}' already holds a run; use --resume {store.path} or another --out")
         metadata = {}

@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import Any
 
 from harness import machine
+from harness.metrics import case_statistics
 from harness.plan import Group, plan
 from harness.store import RunStore
 from harness.suite import Suite
@@ -152,7 +153,7 @@ def run_versus(base: str, head: str | None, suite: Suite, suite_text: str, out: 
             "versions": {v.label: {"spec": v.spec, "commit": v.commit} for v in versions}, "workers": {}, "groups": {},
         }
         store.create(suite_text, metadata)
-        total = sum(1 for g in groups) * (suite.timing.warmup + rounds)
+        total = len(groups) * (suite.timing.warmup + rounds)
         done = 0
         for threads in counts:
             sides = []
@@ -194,13 +195,14 @@ def _run_pair(group: Group, sides: list[_Side], suite: Suite, rounds: int, store
             for case_id, rnd, position, ns in rows:
                 samples.append({**by_id[case_id].as_dict(), "round": rnd, "position": position + slot * len(order),
                                 "phase": phase, "ns": ns, "version": side.version.label})
+    measured: dict[tuple[str, str], list[int]] = {}
+    for s in samples:
+        if s["phase"] == "measure":
+            measured.setdefault((s["case_id"], s["version"]), []).append(s["ns"])
     cases = []
     for label, recs in records.items():
         for rec in recs:
-            mine = [s["ns"] for s in samples if s["case_id"] == rec["case_id"] and s["version"] == label and s["phase"] == "measure"]
-            from harness.metrics import case_statistics
-
-            row = case_statistics(rec, mine, None, 0.0)
+            row = case_statistics(rec, measured.get((rec["case_id"], label), []), None, 0.0)
             row["version"] = label
             cases.append(row)
     store.append(cases, samples)

@@ -10,7 +10,6 @@ The ratio shown is head's median over base's, with a bootstrap interval over pai
 from __future__ import annotations
 
 import fnmatch
-import math
 from typing import Any
 
 import numpy as np
@@ -18,7 +17,7 @@ import pandas as pd
 from tabulate import tabulate
 
 from harness.intervals import Rounds, ratio_interval
-from harness.stats import holm, wilcoxon_greater
+from harness.stats import holm, slower_beyond
 
 DRIFT_NOTE = (
     "Mode: side by side. Both versions ran in this one run on this machine, alternating one round of a group "
@@ -40,7 +39,6 @@ def paired_gate(samples: pd.DataFrame, cases: pd.DataFrame, threshold: float, co
     if globs:
         ids = [c for c in ids if any(fnmatch.fnmatchcase(c, g) for g in globs)]
     rows, slower_p, faster_p, tested = [], [], [], []
-    shift = math.log1p(threshold)
     for cid in ids:
         row: dict[str, Any] = {"case_id": cid}
         if cid not in present["base"] or cid not in present["head"]:
@@ -50,12 +48,12 @@ def paired_gate(samples: pd.DataFrame, cases: pd.DataFrame, threshold: float, co
         mine = measured[measured["case_id"] == cid]
         series = {v: mine[mine["version"] == v].set_index("round")["ns"] for v in ("base", "head")}
         rounds = Rounds.from_series(series, name=f"versus|{cid}")
-        d = np.log(rounds.column("head")) - np.log(rounds.column("base"))
+        head, base = rounds.column("head"), rounds.column("base")
         ratio = ratio_interval(rounds, "head", "base", rounds.name, confidence)
         row.update(base_ms=float(np.median(rounds.column("base"))) / 1e6, head_ms=float(np.median(rounds.column("head"))) / 1e6,
-                   ratio=ratio.value, ratio_lo=ratio.lo, ratio_hi=ratio.hi, rounds=int(d.size))
-        slower_p.append(wilcoxon_greater(d - shift)[1] if d.size else 1.0)
-        faster_p.append(wilcoxon_greater(-d - shift)[1] if d.size else 1.0)
+                   ratio=ratio.value, ratio_lo=ratio.lo, ratio_hi=ratio.hi, rounds=int(head.size))
+        slower_p.append(slower_beyond(head, base, threshold))
+        faster_p.append(slower_beyond(base, head, threshold))
         tested.append(len(rows))
         rows.append(row)
     for index, p_slow, p_fast in zip(tested, holm(slower_p), holm(faster_p)):

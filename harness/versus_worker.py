@@ -47,6 +47,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
 
     from harness.plan import CaseKey, Group
     from harness.suite import Timing
+    from harness.timing import _measure
     from harness.worker import WorkerPlan, prepare_group, start_worker
     from kernels.jit import SOURCE_HASH
 
@@ -93,12 +94,6 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             conn.send(("samples", rows))
         else:
             raise RuntimeError(f"unknown command {message[0]!r}")
-
-
-def _measure(call: Any) -> int:
-    from harness.timing import _measure as timed
-
-    return timed(call)
 
 
 if __name__ == "__main__":
