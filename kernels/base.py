@@ -181,10 +181,12 @@ class Kernel(ABC):
     def flops(self, extents: Extents) -> int:
         """Floating-point operations of one call, as executed (a division counts as one)."""
 
-    @abstractmethod
     def traffic_bytes(self, extents: Extents, dtype: Any) -> int:
         """Compulsory memory traffic of one call: each array read or written counted once,
-        logical elements only, no write-allocate (the STREAM counting convention)."""
+        logical elements only, no write-allocate (the STREAM counting convention). The default
+        counts every declared input and the output; override it for a kernel that reads less."""
+        elements = extents.points + sum(s.points if isinstance(s, Extents) else s for s in self.input_shapes(extents).values())
+        return elements * check_dtype(dtype).itemsize
 
     @abstractmethod
     def tolerance(self, dtype: Any) -> float:

@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import difflib
-import os
 import importlib
+import os
 import pkgutil
+import re
 from typing import TYPE_CHECKING
 
 from kernels.errors import KernelError
@@ -15,10 +16,21 @@ if TYPE_CHECKING:
 
 _REGISTRY: dict[str, Kernel] = {}
 _FAMILY_PACKAGES = ("kernels.columns", "kernels.stencils")
+#: Names the harness gives its own kinds of case: layout conversions and STREAM-triad roof probes.
+CONVERSION_NAME = "convert"
+PROBE_NAME = "triad"
+RESERVED_NAMES = (CONVERSION_NAME, PROBE_NAME)
+_VALID_NAME = re.compile(r"[a-z][a-z0-9_]*\Z")
 
 
 def register(kernel: Kernel) -> Kernel:
-    """Add a kernel; its name must be new."""
+    """Add a kernel; its name must be new, not reserved, and lower-case letters, digits and '_'."""
+    if not isinstance(getattr(kernel, "name", None), str) or not _VALID_NAME.match(kernel.name):
+        raise KernelError(f"kernel name {getattr(kernel, 'name', None)!r} is not valid; use lower-case letters, "
+                          "digits and '_', starting with a letter")
+    if kernel.name in RESERVED_NAMES:
+        raise KernelError(f"kernel name '{kernel.name}' is reserved (the harness's own cases: {', '.join(RESERVED_NAMES)}); "
+                          "choose another name")
     if kernel.name in _REGISTRY and type(_REGISTRY[kernel.name]) is not type(kernel):
         raise KernelError(f"kernel name '{kernel.name}' is registered twice")
     _REGISTRY[kernel.name] = kernel

@@ -48,12 +48,12 @@ class ExtraWork(Laplacian):
         extra = [args] * int(EXTRA)
         fraction = EXTRA - int(EXTRA)
         if fraction > 0:
-            # The walk covers prod(counts[:4]) rows; shrinking its longest axis to the fraction of
-            # itself makes a call that sweeps that fraction of the rows again.
-            counts = np.array(args[2], copy=True)
+            # The walk (q, out, extra, counts, ...) covers prod(counts[:4]) rows; shrinking its longest
+            # axis to the fraction of itself makes a call that sweeps that fraction of the rows again.
+            counts = np.array(args[3], copy=True)
             axis = int(np.argmax(counts[:4]))
             counts[axis] = max(1, int(round(counts[axis] * fraction)))
-            extra.append(args[:2] + (counts,) + args[3:])
+            extra.append(args[:3] + (counts,) + args[4:])
         return Compiled(impl.name, impl.py_func, _Twice(impl.parallel, extra), _Twice(impl.serial, extra), impl.empty), args
 
 

@@ -13,7 +13,7 @@ from kernels.errors import KernelError
 from kernels.grid import LOGICAL_AXES, Extents
 from kernels.layout import TILES, WHOLE, WITHIN, Layout
 from kernels.state import State
-from tests.strategies import extents, layouts_for
+from kernels.testing.strategies import extents, layouts_for
 
 
 def numpy_physical(values: np.ndarray, layout: Layout) -> np.ndarray:

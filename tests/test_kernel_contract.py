@@ -7,29 +7,17 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from kernels.base import Kernel
 from kernels.errors import KernelError, LayoutError
 from kernels.grid import Extents
-from kernels.layout import parse_layout, permutations
+from kernels.layout import parse_layout
 from kernels.registry import all_kernels, get_kernel
 from kernels.state import State
-from tests.strategies import layouts_for
+from kernels.testing import CHECKS, DTYPES, GRID, ContractViolation, check_layouts, check_traffic_model
+from kernels.testing.strategies import layouts_for
 
 KERNELS = all_kernels()
-DTYPES = ("float64", "float32")
-GRID = Extents(var=3, z=5, y=4, x=6)
-# Beyond the 24 permutations: tilings with tiles at each depth, padding of outer and inner axes,
-# a base offset, and tile indices innermost.
-SPECIAL = [
-    "y/2.x/3.var.z.y%2.x%3",
-    "y/4.x/6.var.z.y%4.x%6",
-    "var.z.y+1.x+8",
-    "z+2.var+1.y.x@16",
-    "y%2.x%3.var.z.y/2.x/3",
-    "x/3.y/2.z.x%3+1.var.y%2+2",
-    "var.y/2.z.y%2.x",
-]
-LAYOUTS = [p.spec for p in permutations()] + SPECIAL
+#: The checks that compile every layout are slow; the rest run in milliseconds.
+FAST_CHECKS = [c for c in CHECKS if c is not check_layouts]
 
 
 def test_registry_has_both_families() -> None:
@@ -38,57 +26,33 @@ def test_registry_has_both_families() -> None:
     assert {"varcoef", "levelcoef", "sharedcoef", "laplacian", "hyperdiffusion", "advection"} <= set(KERNELS)
 
 
+@pytest.mark.parametrize("check", FAST_CHECKS, ids=lambda c: c.__name__)
 @pytest.mark.parametrize("name", sorted(KERNELS))
-def test_declares_the_contract(name: str) -> None:
-    kernel = KERNELS[name]
-    assert isinstance(kernel, Kernel)
-    names = [s.name for s in kernel.schedules]
-    assert len(names) >= 2 and len(set(names)) == len(names)
-    assert kernel.summary and kernel.family
-    assert kernel.tolerance("float32") > kernel.tolerance("float64") > 0
-    assert kernel.flops(GRID) > 0
-
-
-@pytest.mark.parametrize("name", sorted(KERNELS))
-@pytest.mark.parametrize("dtype", DTYPES)
-def test_traffic_model_counts_each_array_once(name: str, dtype: str) -> None:
-    """STREAM convention: each input read once and the output written once, logical elements only.
-
-    From memory: J. D. McCalpin's STREAM benchmark counts each array once per kernel pass and no
-    write-allocate traffic (its published counting rules).
-    """
-    kernel = KERNELS[name]
-    logical = kernel.logical_inputs(GRID, np.dtype(dtype), 0)
-    itemsize = np.dtype(dtype).itemsize
-    expected = (sum(v.size for v in logical.values()) + GRID.points) * itemsize
-    assert kernel.traffic_bytes(GRID, dtype) == expected
-
-
-@pytest.mark.parametrize("name", sorted(KERNELS))
-def test_inputs_are_deterministic(name: str) -> None:
-    kernel = KERNELS[name]
-    a = kernel.logical_inputs(GRID, np.dtype("float64"), 7)
-    b = kernel.logical_inputs(GRID, np.dtype("float64"), 7)
-    c = kernel.logical_inputs(GRID, np.dtype("float64"), 8)
-    assert all(np.array_equal(a[k], b[k]) for k in a)
-    assert any(not np.array_equal(a[k], c[k]) for k in a)
+def test_contract(name: str, check) -> None:  # type: ignore[no-untyped-def]
+    check(KERNELS[name])
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", sorted(KERNELS))
 @pytest.mark.parametrize("dtype", DTYPES)
 def test_every_layout_schedule_and_build_matches_reference(name: str, dtype: str) -> None:
-    kernel = KERNELS[name]
-    failures = []
-    for spec in LAYOUTS:
-        problem = kernel.make_problem(spec, GRID, dtype, seed=3)
-        for schedule in kernel.schedules:
-            for build in ("parallel", "serial"):
-                result = kernel.validate(problem, schedule, build)
-                if not result.ok:
-                    failures.append(f"{spec} {schedule.name} {build}: {result.message}")
-            kernel.bind(problem, schedule, "empty")()  # the overhead twin runs with the same arguments
-    assert not failures, "\n".join(failures)
+    check_layouts(KERNELS[name], dtypes=(dtype,))
+
+
+def test_checks_catch_a_broken_kernel() -> None:
+    """The shared checks can fail: a kernel with a wrong traffic model and a wrong answer."""
+
+    class Wrong(type(KERNELS["laplacian"])):  # type: ignore[misc]
+        def traffic_bytes(self, extents: Extents, dtype: object) -> int:
+            return 1
+
+        def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
+            return super().reference(logical) + 1.0
+
+    with pytest.raises(ContractViolation, match="counting rule"):
+        check_traffic_model(Wrong())
+    with pytest.raises(ContractViolation, match="fail validation"):
+        check_layouts(Wrong(), layouts=("var.z.y.x",), dtypes=("float64",))
 
 
 @pytest.mark.slow
@@ -152,18 +116,7 @@ def test_tile_that_does_not_fit_the_grid_is_refused() -> None:
         get_kernel("laplacian").make_problem(parse_layout("y/2.x/4.var.z.y%2.x%4"), GRID)
 
 
-@pytest.mark.parametrize("name", sorted(KERNELS))
-def test_declared_input_shapes_and_footprint(name: str) -> None:
-    kernel = KERNELS[name]
-    logical = kernel.logical_inputs(GRID, np.dtype("float64"), 0)
-    declared = kernel.input_shapes(GRID)
-    assert set(declared) == set(logical)
-    for key, shape in declared.items():
-        expected = shape.shape if isinstance(shape, Extents) else (shape,)
-        assert logical[key].shape == expected, key
-    for spec in ("var.z.y.x", "var.z+1.y.x+8", "y/2.x/3.var.z.y%2.x%3"):
-        problem = kernel.make_problem(spec, GRID)
-        assert kernel.footprint(spec, GRID, "float64") == problem.nbytes()
+
 
 
 def test_first_touch_toucher_is_used_and_values_survive() -> None:
@@ -177,3 +130,32 @@ def test_first_touch_toucher_is_used_and_values_survive() -> None:
     problem = kernel.make_problem("y.x.z.var", GRID, toucher=toucher)
     assert len(touched) == 4  # q, u, v and the output
     assert kernel.validate(problem, "block").ok
+
+
+def test_the_out_of_tree_stencil_example_meets_the_contract(monkeypatch: pytest.MonkeyPatch) -> None:
+    """docs/examples/binomial_smoother.py, the README's example of adding a stencil."""
+    import importlib.util
+    from pathlib import Path
+
+    import kernels.registry
+
+    monkeypatch.setattr(kernels.registry, "_REGISTRY", dict(kernels.registry._REGISTRY))  # leave no trace
+    path = Path(__file__).resolve().parents[1] / "docs" / "examples" / "binomial_smoother.py"
+    spec = importlib.util.spec_from_file_location("binomial_smoother", path)
+    module = importlib.util.module_from_spec(spec)  # type: ignore[arg-type]
+    spec.loader.exec_module(module)  # type: ignore[union-attr]
+    kernel = get_kernel("binomial_smoother")
+    for check in FAST_CHECKS:
+        check(kernel)
+    check_layouts(kernel, layouts=("var.z.y.x", "y/2.x/3.var.z.y%2.x%3", "z.y.x.var"), dtypes=("float64",))
+
+
+@pytest.mark.parametrize("bad", ["convert", "triad", "Lap", "a|b", "9point", ""])
+def test_registration_refuses_reserved_and_malformed_names(bad: str, monkeypatch: pytest.MonkeyPatch) -> None:
+    import kernels.registry
+
+    monkeypatch.setattr(kernels.registry, "_REGISTRY", dict(kernels.registry._REGISTRY))
+    kernel = type(KERNELS["laplacian"])()
+    kernel.name = bad
+    with pytest.raises(KernelError, match="reserved" if bad in ("convert", "triad") else "not valid"):
+        kernels.registry.register(kernel)

@@ -13,7 +13,7 @@ from kernels.errors import LayoutError
 from kernels.grid import Extents
 from kernels.layout import Layout, parse_layout, paddings, parse_tile_sizes, permutations, tilings
 from kernels.state import State
-from tests.strategies import extents, layouts_for
+from kernels.testing.strategies import extents, layouts_for
 
 
 @given(st.data())

@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 from kernels.errors import LayoutError
 from kernels.grid import Extents
 from kernels.state import State
-from tests.strategies import extents, layouts_for
+from kernels.testing.strategies import extents, layouts_for
 
 
 def _random_logical(ext: Extents, dtype: str, seed: int) -> np.ndarray:

@@ -7,9 +7,11 @@ compiled specialisation per schedule therefore serves every layout, tiled and pa
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
-from kernels.base import Schedule
+from kernels.base import Kernel, Schedule
 from kernels.grid import Extents
 from kernels.state import State
 
@@ -145,3 +147,31 @@ def column_tolerance(dtype: np.dtype) -> float:
     contract test's layouts: 4e-16 and 1.7e-7. The bounds below leave a factor of ~25-60.
     """
     return 1e-14 if np.dtype(dtype) == np.float64 else 1e-5
+
+
+class ColumnSolve(Kernel):
+    """A tridiagonal solve along z in every (variable, column), by the Thomas algorithm.
+
+    A subclass gives its inputs, ``implementation`` and ``factorised_systems``; the flop count,
+    traffic model, reference and tolerance are shared. ``a``, ``b``, ``c`` may be 1-D per level.
+    """
+
+    family = "columns"
+    schedules = (COLUMN, STRIP)
+
+    def factorised_systems(self, extents: Extents) -> int:
+        """How many distinct matrices one call factorises (each right-hand side is solved once)."""
+        raise NotImplementedError
+
+    def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
+        full = lambda v: v.reshape(1, -1, 1, 1) if v.ndim == 1 else v  # noqa: E731 - per-level coefficients
+        return thomas_reference(*(full(logical[k]) for k in "abc"), logical["d"])
+
+    def flops(self, extents: Extents) -> int:
+        # Factorisation of n levels: first row 2, rows 1..n-1 4 each. Per right-hand side: forward
+        # 1 + 3(n-1), back substitution 2(n-1). Every (variable, column) is one right-hand side.
+        n = extents.z
+        return self.factorised_systems(extents) * (2 + 4 * (n - 1)) + extents.var * extents.y * extents.x * (5 * n - 4)
+
+    def tolerance(self, dtype: Any) -> float:
+        return column_tolerance(dtype)

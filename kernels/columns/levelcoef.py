@@ -11,18 +11,8 @@ from typing import Any
 import numpy as np
 from numba import prange
 
-from kernels.base import Kernel, Problem, Schedule
-from kernels.columns.common import (
-    COLUMN,
-    STRIP,
-    STRIP_WIDTH,
-    column_tolerance,
-    column_view,
-    diffusion_coefficients,
-    interface_diffusivity,
-    right_hand_side,
-    thomas_reference,
-)
+from kernels.base import Problem, Schedule
+from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_view, diffusion_coefficients, interface_diffusivity, right_hand_side
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
 from kernels.parallel import chunk, thread_count
@@ -88,11 +78,9 @@ COLUMNS = build(solve_columns)
 STRIPS = build(solve_strips)
 
 
-class LevelCoef(Kernel):
+class LevelCoef(ColumnSolve):
     name = "levelcoef"
-    family = "columns"
     summary = "tridiagonal solve per (variable, column); a, b, c per level only (1-D), d 3-D"
-    schedules = (COLUMN, STRIP)
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
         return {"a": extents.z, "b": extents.z, "c": extents.z, "d": extents}
@@ -102,10 +90,6 @@ class LevelCoef(Kernel):
         d = right_hand_side(extents, seed + 1)
         return {"a": a[0].astype(dtype), "b": b[0].astype(dtype), "c": c[0].astype(dtype), "d": d.astype(dtype)}
 
-    def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
-        level = lambda v: v.reshape(1, -1, 1, 1)  # noqa: E731
-        return thomas_reference(level(logical["a"]), level(logical["b"]), level(logical["c"]), logical["d"])
-
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         arr, ext, dt = problem.arrays, problem.extents, problem.dtype
         common = (arr["a"], arr["b"], arr["c"], column_view(problem.fields["d"]), column_view(problem.output))
@@ -114,18 +98,8 @@ class LevelCoef(Kernel):
             return COLUMNS, (*common, ext.z, dt.type(1), fac, thread_count())
         return STRIPS, (*common, ext.z, dt.type(1), fac, thread_count(), schedule.param("width", STRIP_WIDTH))
 
-    def flops(self, extents: Extents) -> int:
-        # Factorisation once: 2 + 4(n-1). Per column: forward 1 + 3(n-1), back 2(n-1).
-        n = extents.z
-        return (2 + 4 * (n - 1)) + extents.var * extents.y * extents.x * (5 * n - 4)
-
-    def traffic_bytes(self, extents: Extents, dtype: Any) -> int:
-        # Read d, write x (var*z*y*x each); read a, b, c (z each).
-        item = np.dtype(dtype).itemsize
-        return (2 * extents.points + 3 * extents.z) * item
-
-    def tolerance(self, dtype: Any) -> float:
-        return column_tolerance(dtype)
+    def factorised_systems(self, extents: Extents) -> int:
+        return 1
 
 
 register(LevelCoef())

@@ -12,16 +12,8 @@ from typing import Any
 import numpy as np
 from numba import prange
 
-from kernels.base import Kernel, Problem, Schedule
-from kernels.columns.common import (
-    COLUMN,
-    STRIP,
-    STRIP_WIDTH,
-    column_tolerance,
-    field_coefficient_inputs,
-    shared_view,
-    thomas_reference,
-)
+from kernels.base import Problem, Schedule
+from kernels.columns.common import ColumnSolve, STRIP_WIDTH, field_coefficient_inputs, shared_view
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, thread_count
@@ -118,11 +110,9 @@ COLUMNS = build(solve_columns)
 STRIPS = build(solve_strips)
 
 
-class SharedCoef(Kernel):
+class SharedCoef(ColumnSolve):
     name = "sharedcoef"
-    family = "columns"
     summary = "one tridiagonal system per column shared by all variables; a, b, c 3-D with var extent 1"
-    schedules = (COLUMN, STRIP)
     padding_value = {"b": 1.0}
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
@@ -132,9 +122,6 @@ class SharedCoef(Kernel):
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         return field_coefficient_inputs(extents, dtype, seed, coefficient_var=1)
 
-    def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
-        return thomas_reference(logical["a"], logical["b"], logical["c"], logical["d"])
-
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         f, ext, dt = problem.fields, problem.extents, problem.dtype
         views = tuple(shared_view(f[k]) for k in "abcd") + (shared_view(problem.output),)
@@ -143,18 +130,8 @@ class SharedCoef(Kernel):
         width = schedule.param("width", STRIP_WIDTH)
         return STRIPS, (*views, ext.z, ext.var, dt.type(1), np.zeros((thread_count(), 3, ext.z, width), dt))
 
-    def flops(self, extents: Extents) -> int:
-        # Per column: factorisation 2 + 4(n-1); per variable: forward 1 + 3(n-1), back 2(n-1).
-        n = extents.z
-        return extents.y * extents.x * ((2 + 4 * (n - 1)) + extents.var * (5 * n - 4))
-
-    def traffic_bytes(self, extents: Extents, dtype: Any) -> int:
-        # Read a, b, c (z*y*x each), read d and write x (var*z*y*x each).
-        item = np.dtype(dtype).itemsize
-        return (3 * extents.z * extents.y * extents.x + 2 * extents.points) * item
-
-    def tolerance(self, dtype: Any) -> float:
-        return column_tolerance(dtype)
+    def factorised_systems(self, extents: Extents) -> int:
+        return extents.y * extents.x
 
 
 register(SharedCoef())

@@ -11,16 +11,8 @@ from typing import Any
 import numpy as np
 from numba import prange
 
-from kernels.base import Kernel, Problem, Schedule
-from kernels.columns.common import (
-    COLUMN,
-    STRIP,
-    STRIP_WIDTH,
-    column_tolerance,
-    column_view,
-    field_coefficient_inputs,
-    thomas_reference,
-)
+from kernels.base import Problem, Schedule
+from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_view, field_coefficient_inputs
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, thread_count
@@ -82,11 +74,9 @@ COLUMNS = build(solve_columns)
 STRIPS = build(solve_strips)
 
 
-class VarCoef(Kernel):
+class VarCoef(ColumnSolve):
     name = "varcoef"
-    family = "columns"
     summary = "tridiagonal solve per (variable, column); a, b, c, d all 3-D fields"
-    schedules = (COLUMN, STRIP)
     padding_value = {"b": 1.0}  # padded columns solve x = d = 0 instead of dividing by zero
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
@@ -94,9 +84,6 @@ class VarCoef(Kernel):
 
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         return field_coefficient_inputs(extents, dtype, seed, coefficient_var=extents.var)
-
-    def reference(self, logical: dict[str, np.ndarray]) -> np.ndarray:
-        return thomas_reference(logical["a"], logical["b"], logical["c"], logical["d"])
 
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         f, ext, dt = problem.fields, problem.extents, problem.dtype
@@ -106,17 +93,8 @@ class VarCoef(Kernel):
         width = schedule.param("width", STRIP_WIDTH)
         return STRIPS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z, width), dt))
 
-    def flops(self, extents: Extents) -> int:
-        # Per column of n levels: first row 3, rows 1..n-1 7 each (forward), 2 each (back).
-        n = extents.z
-        return extents.var * extents.y * extents.x * (9 * n - 6)
-
-    def traffic_bytes(self, extents: Extents, dtype: Any) -> int:
-        # Read a, b, c, d; write x: five fields of var*z*y*x elements.
-        return 5 * extents.points * np.dtype(dtype).itemsize
-
-    def tolerance(self, dtype: Any) -> float:
-        return column_tolerance(dtype)
+    def factorised_systems(self, extents: Extents) -> int:
+        return extents.var * extents.y * extents.x
 
 
 register(VarCoef())

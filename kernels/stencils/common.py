@@ -11,13 +11,18 @@ only the ends use per-element table lookups. No modulo and no negative-index wra
 
 from __future__ import annotations
 
+import types
 from dataclasses import dataclass
+from typing import Any, Callable
 
 import numpy as np
+from numba import prange
 
-from kernels.base import Schedule
+from kernels.base import Kernel, Problem, Schedule
 from kernels.grid import Extents
+from kernels.jit import Compiled, build, inline
 from kernels.layout import TILES
+from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.state import State
 
 NDIM = 6  # rows are walked as a 6-axis nest (axes of count 1 pad shorter layouts)
@@ -124,3 +129,110 @@ def stencil_tolerance(dtype: np.dtype, terms: int) -> float:
     """
     eps = np.finfo(np.dtype(dtype)).eps
     return 8.0 * terms * float(eps)
+
+
+#: Placeholders of the template's two pieces; ``row_walk`` binds them in a copy of its globals.
+_offsets: Callable[..., Any] | None = None
+_point: Callable[..., Any] | None = None
+#: Bound per stencil: whether its companion can stand still along a row (var stride 0); a
+#: constant, so stencils without a companion compile no loop for that case.
+_companion_may_stand = False
+
+
+def _walk(q, out, extra, counts, strides, wstrides, jmul, imul, dy, dx, wdy, wdx, edge, consts, nchunks, cyclic):  # type: ignore[no-untyped-def]
+    """Template of every stencil's row walk; ``row_walk`` binds ``_offsets`` and ``_point``."""
+    n4, n5 = counts[4], counts[5]
+    nitems = counts[0] * counts[1] * counts[2] * counts[3]
+    tj, ti, wstep = jmul[5], imul[5], wstrides[5]
+    lo_in, hi_in = edge, n5 - edge
+    for t in prange(nchunks):
+        lo, hi = chunk(nitems, nchunks, t)
+        start, stop, step = (t, nitems, nchunks) if cyclic else (lo, hi, 1)
+        for item in range(start, stop, step):
+            i0, i1, i2, i3 = unflatten4(item, counts)
+            base, wbase = dot4(i0, i1, i2, i3, strides), dot4(i0, i1, i2, i3, wstrides)
+            j0, x0 = dot4(i0, i1, i2, i3, jmul), dot4(i0, i1, i2, i3, imul)
+            for i4 in range(n4):
+                rb, wb = base + i4 * strides[4], wbase + i4 * wstrides[4]
+                j, i = j0 + i4 * jmul[4], x0 + i4 * imul[4]
+                if hi_in > lo_in:  # the interior: constant displacements, a plain SIMD loop
+                    offs = _offsets(dy, dx, wdy, wdx, j + lo_in * tj, i + lo_in * ti)
+                    if _companion_may_stand and wstep == 0:  # var innermost: one companion point per row
+                        for tt in range(lo_in, hi_in):
+                            _point(q, out, extra, rb + tt, wb, offs, consts)
+                    else:
+                        for tt in range(lo_in, hi_in):
+                            _point(q, out, extra, rb + tt, wb + tt, offs, consts)
+                for tt in range(min(lo_in, n5)):  # row start: a tile edge or the periodic seam
+                    offs = _offsets(dy, dx, wdy, wdx, j + tt * tj, i + tt * ti)
+                    _point(q, out, extra, rb + tt, wb + tt * wstep, offs, consts)
+                for tt in range(max(hi_in, lo_in), n5):  # row end
+                    offs = _offsets(dy, dx, wdy, wdx, j + tt * tj, i + tt * ti)
+                    _point(q, out, extra, rb + tt, wb + tt * wstep, offs, consts)
+
+
+@inline
+def axis_neighbours(dy, dx, wdy, wdx, j, i):  # type: ignore[no-untyped-def]
+    """The ``offsets`` piece of a stencil reading q's four axis neighbours: east, west, north, south."""
+    return dx[2, i], dx[0, i], dy[2, j], dy[0, j]
+
+
+def row_walk(name: str, offsets: Callable[..., Any], point: Callable[..., Any], companion: bool = False) -> Compiled:
+    """The compiled row walk of one stencil: the shared template with its two inlined pieces.
+
+    ``offsets(dy, dx, wdy, wdx, j, i)`` returns the neighbour displacements at logical (j, i);
+    ``point(q, out, extra, p, pw, offs, consts)`` computes one output element at flat position
+    ``p``; ``extra`` holds further read-only inputs, walked at ``pw`` (the same point in the
+    companion walk: fields of var extent 1, or ``q`` itself). Both are ``@inline`` functions, so
+    the walk compiles to the loop a hand-written stencil would. ``companion``: the stencil walks
+    fields of var extent 1 (``Stencil.companion``).
+
+    The pieces are bound as globals of a copy of the template, not as closure cells: numba keys
+    its disk cache on pickled closure cells, which differ in every process for a compiled
+    function, so a closure would recompile in every worker. ``out`` is a parameter of its own
+    because numba's parallel loops drop stores into an array taken from a tuple.
+    """
+    namespace = dict(_walk.__globals__, _offsets=offsets, _point=point, _companion_may_stand=companion)
+    walk = types.FunctionType(_walk.__code__, namespace, f"{name}_rows")
+    walk.__qualname__ = walk.__name__  # its own cache files and compile records
+    walk.__module__ = _walk.__module__
+    return build(walk)
+
+
+class Stencil(Kernel):
+    """A horizontal stencil over every variable and level, doubly periodic.
+
+    A subclass gives ``walk`` (from ``row_walk``), ``halo``, ``constants``, ``reference``,
+    ``flops`` and ``tolerance``; it reads ``q`` unless it overrides the inputs. Fields of var
+    extent 1 (``companion``) are walked with var stride 0 alongside ``q``.
+    """
+
+    family = "stencils"
+    schedules = (BLOCK, CYCLIC)
+    halo = 1
+    walk: Compiled
+    #: Input field walked in step with ``q`` but with var stride 0; None: ``q`` itself.
+    companion: str | None = None
+    #: Fuse trailing var/z axes into longer rows (only when every field has the full var extent).
+    merge_vertical = True
+
+    def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
+        return {"q": extents}
+
+    def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
+        return {"q": smooth_field(extents, seed).astype(dtype)}
+
+    def constants(self, dtype: np.dtype) -> tuple[Any, ...]:
+        """Scalars the point function reads, in the state's dtype."""
+        raise NotImplementedError
+
+    def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
+        fields = problem.fields
+        g = row_geometry(fields["q"], self.halo, self.merge_vertical)
+        w = g if self.companion is None else row_geometry(fields[self.companion], self.halo, False, zero_var_stride=True)
+        extra = tuple(st.data.reshape(-1) for key, st in fields.items() if key != "q")
+        args = (
+            fields["q"].data.reshape(-1), problem.output.data.reshape(-1), extra, g.counts, g.strides, w.strides, g.jmul, g.imul, g.dy, g.dx, w.dy, w.dx, g.edge,
+            self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name),
+        )
+        return self.walk, args
