@@ -181,7 +181,7 @@ def _import_bench(args: argparse.Namespace) -> int:
 def _rank(args: argparse.Namespace) -> int:
     from harness.rank import RankOptions, load_runs, rank_runs
     from harness.report import render
-    from kernels.layout import parse_layout
+    from kernels.notation import parse_layout
 
     if not 0 < args.alpha < 1:
         raise StridewiseError(f"--alpha must be between 0 and 1, got {args.alpha}")

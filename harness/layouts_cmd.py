@@ -6,17 +6,9 @@ import argparse
 
 from harness.tables import FORMATS, render
 from kernels.grid import SUPPORTED_DTYPES, Extents
-from kernels.layout import (
-    TILING_ORDER,
-    TILING_SIZES,
-    Layout,
-    format_tile_sizes,
-    paddings,
-    parse_layout,
-    parse_tile_sizes,
-    permutations,
-    tilings,
-)
+from kernels.families import TILING_ORDER, TILING_SIZES, format_tile_sizes, paddings, parse_tile_sizes, permutations, tilings
+from kernels.layout import Layout
+from kernels.notation import parse_layout
 
 FAMILIES = ("permutations", "tilings", "paddings")
 

@@ -106,7 +106,7 @@ def group_bytes(group: Group) -> int:
     registry = all_kernels()
     extents = Extents.parse(group.grid)
     if group.kernel == CONVERT:
-        from kernels.layout import parse_layout
+        from kernels.notation import parse_layout
 
         total = 0
         for case in group.cases:

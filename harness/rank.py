@@ -34,7 +34,7 @@ from harness.plan import CONVERT
 from harness.stats import holm, slower_beyond, split_rounds
 from harness.store import RunStore, RunStoreError
 from kernels.errors import StridewiseError
-from kernels.layout import parse_layout
+from kernels.notation import parse_layout
 
 GROUP_KEYS = ["machine", "kernel", "grid", "dtype", "threads"]
 #: Round ids of the n-th run directory are offset by n times this (an even number, so the

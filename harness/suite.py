@@ -13,17 +13,9 @@ from typing import Any
 
 from kernels.errors import StridewiseError
 from kernels.grid import Extents, check_dtype
-from kernels.layout import (
-    TILING_ORDER,
-    TILING_SIZES,
-    Layout,
-    format_tile_sizes,
-    paddings,
-    parse_layout,
-    parse_tile_sizes,
-    permutations,
-    tilings,
-)
+from kernels.families import TILING_ORDER, TILING_SIZES, format_tile_sizes, paddings, parse_tile_sizes, permutations, tilings
+from kernels.layout import Layout
+from kernels.notation import parse_layout
 
 BUILTIN_SUITES = ("default", "smoke")
 THREADING_LAYERS = ("default", "omp", "tbb", "workqueue")

@@ -10,7 +10,9 @@ from typing import Any
 
 from kernels.errors import KernelError, LayoutError, StridewiseError
 from kernels.grid import LOGICAL_AXES, SUPPORTED_DTYPES, Extents
-from kernels.layout import Layout, paddings, parse_layout, permutations, tilings
+from kernels.families import paddings, permutations, tilings
+from kernels.layout import Layout
+from kernels.notation import parse_layout
 from kernels.state import State
 
 #: Names served lazily, and the module each comes from.

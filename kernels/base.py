@@ -10,7 +10,8 @@ import numpy as np
 
 from kernels.grid import Extents, check_dtype
 from kernels.jit import Compiled
-from kernels.layout import Layout, as_layout
+from kernels.layout import Layout
+from kernels.notation import as_layout
 from kernels.state import State, Toucher
 
 BUILDS = ("parallel", "serial", "empty")

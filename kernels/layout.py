@@ -1,25 +1,13 @@
 """The layout model: which physical order, tiling and padding holds the logical axes.
 
-Spec grammar (outermost token first, joined by ``.``, optional ``@N`` base offset)::
-
-    spec    := token ("." token)* ["@" bytes]
-    token   := axis [part] ["+" pad]
-    axis    := "var" | "z" | "y" | "x"   a whole logical axis
-    part    := "/" size                  on y or x: the tile index, for tiles of ``size``
-             | "%" size                  on y or x: the position inside a tile of ``size``
-
-Tiling is written as index arithmetic on the logical index: ``y/4`` runs over ``j // 4`` and
-``y%4`` over ``j % 4``; both parts of a tiled axis appear, with the same size.
-
-Examples: ``var.z.y.x``, ``y.x.z.var``, ``y/4.x/8.var.z.y%4.x%8``, ``var.z.y+1.x+8``,
-``var.z.y.x@128`` (buffer starts 128 bytes past a 64-byte boundary).
+A layout is a tuple of tokens, outermost first: a whole logical axis (``var``, ``z``, ``y``,
+``x``) or one part of a tiled horizontal axis (the tile index, or the position in a tile), each
+with optional padding, plus a base offset in bytes. Its text form is in ``kernels.notation``;
+the families of layouts a suite expands are in ``kernels.families``.
 """
 
 from __future__ import annotations
 
-import itertools
-import re
-from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -32,7 +20,6 @@ from kernels.grid import HORIZONTAL_AXES, LOGICAL_AXES, Extents, check_dtype
 ALIGNMENT = 64
 
 WHOLE, TILES, WITHIN = "whole", "tiles", "within"
-_TOKEN_RE = re.compile(r"^(?P<name>[A-Za-z]+)(?P<digits>\d*)(?:(?P<op>[/%])(?P<size>[^+]*))?(?:(?P<plus>\+)(?P<pad>.*))?$")
 _VALID_NAMES = "var, z, y, x, y/N and x/N (tile index), y%N and x%N (position in a tile of N)"
 _OP = {TILES: "/", WITHIN: "%"}
 _FILE_SAFE = str.maketrans({"/": "d", "%": "m", "+": "p", "@": "o"})
@@ -93,7 +80,9 @@ class Layout:
     # -- text -----------------------------------------------------------------------------
     @classmethod
     def parse(cls, spec: str) -> Layout:
-        """Parse spec text strictly (see the module docstring); raise LayoutError on any fault."""
+        """Parse spec text strictly (see ``kernels.notation``); raise LayoutError on any fault."""
+        from kernels.notation import parse_layout
+
         return parse_layout(spec)
 
     @property
@@ -259,119 +248,3 @@ def _validate(tokens: tuple[Token, ...], base_offset: int) -> None:
         if parts == {TILES, WITHIN} and seen[(axis, TILES)].tile != seen[(axis, WITHIN)].tile:
             a, b = seen[(axis, TILES)].tile, seen[(axis, WITHIN)].tile
             raise LayoutError(f"'{axis}/{a}' and '{axis}%{b}' disagree on the tile size; both parts take the same N")
-
-
-def parse_layout(spec: str) -> Layout:
-    """Parse layout spec text; see the module docstring for the grammar."""
-    if not isinstance(spec, str) or not spec.strip():
-        raise LayoutError(f"empty layout spec {spec!r}; example: var.z.y.x")
-    text = spec.strip()
-    body, at, offset_text = text.partition("@")
-    base_offset = 0
-    if at:
-        if not offset_text.isdigit():
-            raise LayoutError(f"base offset '@{offset_text}' in '{text}' must be a non-negative integer of bytes")
-        base_offset = int(offset_text)
-    tokens = tuple(_parse_token(piece, text) for piece in body.split("."))
-    return Layout(tokens, base_offset)
-
-
-def _parse_token(piece: str, text: str) -> Token:
-    m = _TOKEN_RE.match(piece)
-    if not m:
-        raise LayoutError(f"bad token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}, each optionally +PAD")
-    name, op, size_text = m["name"], m["op"], m["size"]
-    if name in ("Y", "X") or (m["digits"] and name in HORIZONTAL_AXES):
-        axis = name.lower()
-        raise LayoutError(
-            f"token '{piece}' in '{text}' uses an unsupported tiling form; write a tiled axis as "
-            f"'{axis}/N' (tile index) and '{axis}%N' (position in the tile), e.g. y/8.x/16.var.z.y%8.x%16"
-        )
-    if name not in LOGICAL_AXES or m["digits"]:
-        raise LayoutError(f"unknown token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}")
-    pad = 0
-    if m["plus"]:
-        if not re.fullmatch(r"-?\d+", m["pad"] or ""):
-            raise LayoutError(f"bad pad in token '{piece}'; write +N with N a non-negative integer")
-        pad = int(m["pad"])
-        if pad < 0:
-            raise LayoutError(f"negative pad in token '{piece}'; pads are >= 0")
-    if not op:
-        return Token(name, WHOLE, 0, pad)
-    if name not in HORIZONTAL_AXES:
-        raise LayoutError(f"axis '{name}' cannot be tiled (token '{piece}'); only y and x can")
-    if not size_text.isdigit() or int(size_text) <= 0:
-        raise LayoutError(f"tile size in '{piece}' must be a positive integer, e.g. {name}{op}8")
-    return Token(name, TILES if op == "/" else WITHIN, int(size_text), pad)
-
-
-def as_layout(layout: Layout | str) -> Layout:
-    """Accept a Layout or its spec text."""
-    return layout if isinstance(layout, Layout) else parse_layout(layout)
-
-
-# -- families ---------------------------------------------------------------------------------
-def permutations() -> list[Layout]:
-    """All 24 orders of the four logical axes, in lexicographic order of ``(var, z, y, x)``."""
-    return [Layout(tuple(Token(a) for a in order)) for order in itertools.permutations(LOGICAL_AXES)]
-
-
-#: Default token order of the tilings family: tiles outermost, each tile holding every level of
-#: every variable. One default for suites and ``stridewise layouts`` alike.
-TILING_ORDER = "y/.x/.var.z.y%.x%"
-#: Default tile sizes (y, x) of the tilings family.
-TILING_SIZES = ((4, 8), (8, 8))
-
-
-def tilings(tiles: Iterable[tuple[int, int]], order: str = TILING_ORDER) -> list[Layout]:
-    """Tiled layouts over tile sizes ``(ty, tx)``.
-
-    ``order`` places the six parts, sizes left out: ``y/`` and ``x/`` (tile index), ``y%`` and
-    ``x%`` (position in a tile), ``var`` and ``z``; any part may carry ``+PAD``.
-    """
-    template = order.split(".")
-    bare = sorted(t.split("+")[0] for t in template)
-    if bare != sorted(["y/", "x/", "y%", "x%", "var", "z"]):
-        raise LayoutError(f"tiling order '{order}' must name y/, x/, var, z, y%, x% once each, e.g. {TILING_ORDER}")
-    out = []
-    for ty, tx in tiles:
-        size = {"y": ty, "x": tx}
-        spec = ".".join(
-            f"{t[:2]}{size[t[0]]}{t[2:]}" if t[0] in size and t[1:2] in ("/", "%") else t for t in template
-        )
-        out.append(parse_layout(spec))
-    return out
-
-
-def paddings(base: Layout | str, pads: Sequence[int], token: str | None = None) -> list[Layout]:
-    """Copies of ``base`` with one token (default: the innermost) padded by each of ``pads``."""
-    base = as_layout(base)
-    names = [t.text.split("+")[0] for t in base.tokens]
-    target = names[-1] if token is None else token
-    if target not in names:
-        raise LayoutError(f"token '{target}' is not in layout '{base.spec}'; its tokens: {', '.join(names)}")
-    pos = names.index(target)
-    out = []
-    for pad in pads:
-        if pad < 0:
-            raise LayoutError(f"negative pad {pad}; pads are >= 0")
-        toks = list(base.tokens)
-        toks[pos] = Token(toks[pos].axis, toks[pos].part, toks[pos].tile, pad)
-        out.append(Layout(tuple(toks), base.base_offset))
-    return out
-
-
-def format_tile_sizes(tiles: Iterable[tuple[int, int]]) -> str:
-    """Inverse of ``parse_tile_sizes``: ``[(4, 8)]`` -> ``"4x8"``."""
-    return ",".join(f"{ty}x{tx}" for ty, tx in tiles)
-
-
-def parse_tile_sizes(text: str) -> list[tuple[int, int]]:
-    """Parse ``"4x8,8x8"`` into ``[(4, 8), (8, 8)]`` (y-size first)."""
-    out = []
-    for item in text.split(","):
-        m = re.fullmatch(r"\s*(\d+)x(\d+)\s*", item)
-        if not m or int(m[1]) <= 0 or int(m[2]) <= 0:
-            raise LayoutError(f"bad tile size '{item.strip()}'; write YSIZExXSIZE with positive sizes, e.g. 4x8")
-        out.append((int(m[1]), int(m[2])))
-    return out

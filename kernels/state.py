@@ -10,7 +10,8 @@ import numpy as np
 
 from kernels.errors import LayoutError
 from kernels.grid import LOGICAL_AXES, Extents, check_dtype
-from kernels.layout import ALIGNMENT, TILES, WITHIN, Layout, as_layout
+from kernels.layout import ALIGNMENT, TILES, WITHIN, Layout
+from kernels.notation import as_layout
 
 
 Toucher = Callable[[np.ndarray], None]

@@ -9,7 +9,7 @@ from hypothesis import strategies as st
 
 from kernels.errors import KernelError, LayoutError
 from kernels.grid import Extents
-from kernels.layout import parse_layout
+from kernels.notation import parse_layout
 from kernels.registry import all_kernels, get_kernel
 from kernels.state import State
 from kernels.testing import CHECKS, DTYPES, GRID, ContractViolation, check_layouts, check_traffic_model

@@ -12,7 +12,7 @@ from scipy.linalg import solve_banded
 from scipy.ndimage import correlate
 
 from kernels.grid import Extents
-from kernels.layout import permutations
+from kernels.families import permutations
 from kernels.registry import get_kernel
 
 COLUMN_KERNELS = ("varcoef", "levelcoef", "sharedcoef")

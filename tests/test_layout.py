@@ -11,7 +11,9 @@ from hypothesis import strategies as st
 
 from kernels.errors import LayoutError
 from kernels.grid import Extents
-from kernels.layout import Layout, parse_layout, paddings, parse_tile_sizes, permutations, tilings
+from kernels.families import paddings, parse_tile_sizes, permutations, tilings
+from kernels.layout import Layout
+from kernels.notation import parse_layout
 from kernels.state import State
 from kernels.testing.strategies import extents, layouts_for
 

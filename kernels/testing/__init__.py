@@ -19,7 +19,7 @@ import numpy as np
 
 from kernels.base import Kernel
 from kernels.grid import Extents
-from kernels.layout import permutations
+from kernels.families import permutations
 
 DTYPES = ("float64", "float32")
 #: Small and uneven on purpose: every axis distinct, so a transposed index shows up.

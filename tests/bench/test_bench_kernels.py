@@ -11,7 +11,7 @@ import numba
 import pytest
 
 from kernels.grid import Extents
-from kernels.layout import parse_layout
+from kernels.notation import parse_layout
 from kernels.registry import all_kernels
 
 GRID = Extents(var=4, z=32, y=64, x=64)
