@@ -129,7 +129,8 @@ def _versus(args: argparse.Namespace) -> int:
     from harness import machine
     from harness.gate import gate_verdict
     from harness.suite import load_suite
-    from harness.sweep import _suite_text, default_run_dir
+    from harness.suite import read_suite_text
+    from harness.sweep import default_run_dir
     from harness.versus import run_versus
     from harness.versus_gate import paired_gate, render_versus
 
@@ -143,7 +144,7 @@ def _versus(args: argparse.Namespace) -> int:
             sys.path.append(str(Path(version).resolve()))
     suite = load_suite(args.suite)
     out = Path(args.out) if args.out else default_run_dir("versus", machine.fingerprint()["machine_id"])
-    store = run_versus(args.base, args.head, suite, _suite_text(args.suite), out, args.rounds, Path(args.repo), args.quiet)
+    store = run_versus(args.base, args.head, suite, read_suite_text(args.suite), out, args.rounds, Path(args.repo), args.quiet)
     table = paired_gate(store.samples(), store.cases(), args.threshold, args.confidence, tuple(args.cases))
     if table.empty:
         raise StridewiseError("no case ran in both versions; nothing to gate")

@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from harness.cases import CaseKind
 from harness.stats import holm
 from harness.store import RunStore
 from kernels.errors import StridewiseError
@@ -189,11 +190,11 @@ def compare(
         diffs = [f"{k}: {fp_b.get(k)!r} -> {fp_c.get(k)!r}" for k in FINGERPRINT_FIELDS if fp_b.get(k) != fp_c.get(k)]
         warnings_.append(f"machine {cur_machine} differs from the baseline's {baseline.get('machine_id')}"
                          + (f" ({'; '.join(diffs)})" if diffs else ""))
-    base_cases = {c: v for c, v in baseline["cases"].items() if v["kernel"] != "triad"}
+    base_cases = {c: v for c, v in baseline["cases"].items() if CaseKind.of(v["kernel"]) is not CaseKind.PROBE}
     cur_cases: dict[str, list[dict[str, Any]]] = {}
     for stats_, _ in currents:
         for cid, v in stats_.items():
-            if v["kernel"] != "triad":
+            if CaseKind.of(v["kernel"]) is not CaseKind.PROBE:
                 cur_cases.setdefault(cid, []).append(v)
     if options.patterns:
         keep = lambda cid: any(fnmatch.fnmatch(cid, p) for p in options.patterns)  # noqa: E731

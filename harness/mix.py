@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from harness.intervals import Rounds, combine
-from harness.plan import ARROW, CONVERT
+from harness.cases import ARROW, CaseKind, of_kind
 
 
 def _weights(runs: Any, options: Any, machine: str) -> dict[str, float]:
@@ -28,7 +28,7 @@ def _weights(runs: Any, options: Any, machine: str) -> dict[str, float]:
 def _conversion_rounds(runs: Any, machine: str, grid: str, dtype: str, threads: int) -> dict[str, Rounds]:
     """Rounds of each measured parallel conversion at this grid, dtype and thread count."""
     cases = runs.cases
-    conv = cases[(cases["machine"] == machine) & (cases["kernel"] == CONVERT) & (cases["grid"] == grid)
+    conv = cases[(cases["machine"] == machine) & of_kind(cases, CaseKind.CONVERSION) & (cases["grid"] == grid)
                  & (cases["dtype"] == dtype) & (cases["threads"] == threads) & (cases["build"] == "parallel")
                  & (cases["status"] == "ok")]
     out = {}

@@ -2,62 +2,10 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
+from harness.cases import ARROW, CONVERT, CaseKey, Group
 from harness.suite import Suite
 from kernels.grid import Extents
 from kernels.registry import all_kernels
-
-CONVERT = "convert"  # the pseudo-kernel name of layout conversions
-ARROW = "->"
-
-
-@dataclass(frozen=True, order=True)
-class CaseKey:
-    """One timed case: every key that identifies it."""
-
-    kernel: str
-    schedule: str
-    build: str  # "parallel" or "serial" (the parallel=False build, timed at 1 thread)
-    layout: str  # a layout spec, or "FROM->TO" for a conversion
-    dtype: str
-    grid: str
-    threads: int
-
-    @property
-    def id(self) -> str:
-        return "|".join((self.kernel, self.schedule, self.build, self.layout, self.dtype, self.grid, str(self.threads)))
-
-    def as_dict(self) -> dict[str, object]:
-        return {
-            "case_id": self.id,
-            "kernel": self.kernel,
-            "schedule": self.schedule,
-            "build": self.build,
-            "layout": self.layout,
-            "dtype": self.dtype,
-            "grid": self.grid,
-            "threads": self.threads,
-        }
-
-
-@dataclass(frozen=True)
-class Group:
-    """Cases timed interleaved in one set of rounds: same kernel, grid, dtype and thread count."""
-
-    kernel: str
-    grid: str
-    dtype: str
-    threads: int
-    cases: tuple[CaseKey, ...]
-    tag: str = ""  # distinguishes a second group of the same kernel (automatic conversions)
-    repetition: int = 0  # which run of the group (suite timing.repetitions)
-
-    @property
-    def label(self) -> str:
-        rep = f" rep{self.repetition + 1}" if self.repetition else ""
-        return f"{self.kernel}{self.tag} {self.grid} {self.dtype} {self.threads}t{rep}"
-
 
 def plan(suite: Suite, thread_counts: tuple[int, ...]) -> list[Group]:
     """Every group of the suite, thread count outermost (one worker process per thread count);

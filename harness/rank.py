@@ -30,7 +30,7 @@ import pandas as pd
 
 from harness import metrics
 from harness.intervals import CONFIDENCE, Rounds
-from harness.plan import CONVERT
+from harness.cases import CaseKind, of_kind, probe_schedule
 from harness.stats import holm, slower_beyond, split_rounds
 from harness.store import RunStore, RunStoreError
 from kernels.errors import StridewiseError
@@ -211,7 +211,7 @@ class Ranking:
 
 def _probes_of(cases: pd.DataFrame, key: tuple[Any, ...]) -> pd.DataFrame:
     machine, kernel, grid, dtype, threads = key
-    return cases[(cases["kernel"] == "triad") & (cases["schedule"] == f"probe-{kernel}") & (cases["machine"] == machine)
+    return cases[of_kind(cases, CaseKind.PROBE) & (cases["schedule"] == probe_schedule(kernel)) & (cases["machine"] == machine)
                  & (cases["grid"] == grid) & (cases["dtype"] == dtype) & (cases["threads"] == threads)]
 
 
@@ -220,7 +220,7 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
     from harness.scaling import scaling_and_flips
 
     cases = runs.cases
-    kernels = cases[(cases["kernel"] != "triad") & (cases["kernel"] != CONVERT)]
+    kernels = cases[of_kind(cases, CaseKind.KERNEL)]
     tables, rounds = [], {}
     for key, grp in kernels.groupby(GROUP_KEYS, sort=False):
         probes = _probes_of(cases, key)
@@ -242,7 +242,7 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
     table = pd.concat(tables, ignore_index=True)
     table = table[GROUP_KEYS + [c for c in table.columns if c not in GROUP_KEYS]]
     scaling, flips = scaling_and_flips(table, rounds, options)
-    failed = cases[(cases["status"] != "ok") & (cases["kernel"] != "triad")]
+    failed = cases[(cases["status"] != "ok") & ~of_kind(cases, CaseKind.PROBE)]
     mix = kernel_mix(table, rounds, runs, options)
     return Ranking(table, scaling, flips, mix, _machine_diffs(table), failed, runs, options, rounds,
                    repetition_agreement(table, rounds))
@@ -250,7 +250,7 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
 
 def max_looks(metadata: dict[str, Any]) -> int:
     """Looks the run's adaptive policy allowed each group (1 when adaptive effort was off)."""
-    from harness.suite import Timing
+    from harness.sampling import Timing
 
     timing = metadata.get("suite", {}).get("timing") or {}
     known = {k: v for k, v in timing.items() if k in Timing.__dataclass_fields__}

@@ -9,11 +9,14 @@ import sys
 from typing import Any
 
 from harness import machine
+from harness.processes import ChildError, environment, receive
 from harness.roof import RoofCurve
 from harness.tables import render
 from harness.worker import worker_environment
 from kernels.errors import StridewiseError
 
+#: Longest wait for one thread count's curve (a 1 GiB curve takes well under a minute here).
+ROOF_TIMEOUT_S = 900.0
 _UNITS = {"": 1, "B": 1, "KIB": 1 << 10, "MIB": 1 << 20, "GIB": 1 << 30, "KB": 10**3, "MB": 10**6, "GB": 10**9}
 
 
@@ -50,17 +53,14 @@ def run_roof(args: argparse.Namespace) -> int:
     curves = []
     for threads in counts:  # one fresh process per thread count, like the sweep's workers
         q = ctx.Queue()
-        import os
-
-        saved = dict(os.environ)
-        os.environ.update(worker_environment(threads, "default", False))
-        try:
+        with environment(worker_environment(threads, "default", False)):
             proc = ctx.Process(target=_measure, args=(threads, max_bytes, q), daemon=True)
             proc.start()
-        finally:
-            os.environ.clear()
-            os.environ.update(saved)
-        curves.append(RoofCurve.from_dict(q.get()))
+        try:
+            curves.append(RoofCurve.from_dict(receive(q, proc, ROOF_TIMEOUT_S, f"roof at {threads} thread(s)")))
+        except ChildError as exc:
+            print(f"stridewise: {exc}", file=sys.stderr)
+            return 1
         proc.join()
     records = []
     for curve in curves:

@@ -11,6 +11,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
+from harness.sampling import Timing
 from kernels.errors import StridewiseError
 from kernels.grid import Extents, check_dtype
 from kernels.families import TILING_ORDER, TILING_SIZES, format_tile_sizes, paddings, parse_tile_sizes, permutations, tilings
@@ -23,34 +24,6 @@ THREADING_LAYERS = ("default", "omp", "tbb", "workqueue")
 
 class SuiteError(StridewiseError):
     """A suite file or suite value is invalid."""
-
-
-@dataclass(frozen=True)
-class Timing:
-    """How each case is sampled."""
-
-    warmup: int = 1  # rounds recorded with phase=warmup and left out of every statistic
-    min_repeats: int = 7  # measured rounds at least
-    min_seconds: float = 0.05  # and at least this much measured time per case
-    max_rounds: int = 200
-    cold_cache: bool = False  # evict caches between samples
-    flush_bytes: int = 0  # cold-cache buffer size; 0 = twice the reported last-level cache
-    first_touch: bool = True  # buffers first written by a parallel loop at the worker's thread count
-    serial_baseline: bool = True  # time parallel=False builds at 1 thread: the speedup denominator
-    roof: bool = True  # measure the triad curve in every worker
-    roof_max_bytes: int = 1 << 30  # largest triad footprint of the roof curve
-    repetitions: int = 1  # run every group this many times, interleaved (rep 1 of all groups, then rep 2, ...)
-    max_seconds: float = 0.0  # adaptive effort: budget per group for extra rounds when its leader is undecided
-
-    def max_looks(self) -> int:
-        """Looks at the data an adaptive group may take (1 when adaptive effort is off): after
-        min_repeats measured rounds, then each time the rounds double, up to max_rounds."""
-        if self.max_seconds <= 0:
-            return 1
-        looks, n = 1, max(self.min_repeats, 1)
-        while n * 2 <= max(self.max_rounds, self.min_repeats):
-            looks, n = looks + 1, n * 2
-        return looks
 
 
 @dataclass(frozen=True)
@@ -197,6 +170,10 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
         if kname not in names:
             raise SuiteError(f"kernels.options names kernel '{kname}', which the suite does not run; run: {', '.join(names)}")
         _check_keys(_expect(opts, dict, f"kernels.options.{kname}"), {"strip_width"}, f"kernels.options.{kname}")
+        takes = sorted(n for n in names if any("width" in dict(sch.params) for sch in registry[n].schedules))
+        if "strip_width" in opts and kname not in takes:
+            raise SuiteError(f"kernels.options.{kname}.strip_width: kernel '{kname}' has no schedule with a strip width; "
+                             f"kernels of this suite that take one: {', '.join(takes) or 'none'}")
         width = _expect(opts.get("strip_width", 128), int, f"kernels.options.{kname}.strip_width")
         if width <= 0:
             raise SuiteError(f"kernels.options.{kname}.strip_width must be positive, got {width}")
@@ -275,18 +252,22 @@ def _timing(section: dict[str, Any]) -> Timing:
     return Timing(**values)
 
 
+def read_suite_text(path_or_name: str | None) -> str:
+    """The TOML text of a suite file, or of a built-in suite by name (None: the default suite)."""
+    name = path_or_name or "default"
+    if name in BUILTIN_SUITES and not Path(name).exists():
+        return resources.files("harness").joinpath(f"suites/{name}.toml").read_text()
+    path = Path(name)
+    if not path.is_file():
+        raise SuiteError(f"suite file '{name}' not found; give a TOML file or one of: {', '.join(BUILTIN_SUITES)}")
+    return path.read_text()
+
+
 def load_suite(path_or_name: str | None) -> Suite:
     """Load a suite file, or a built-in suite by name (None: the default suite)."""
     name = path_or_name or "default"
-    if name in BUILTIN_SUITES and not Path(name).exists():
-        text = resources.files("harness").joinpath(f"suites/{name}.toml").read_text()
-        source = f"built-in suite '{name}'"
-    else:
-        path = Path(name)
-        if not path.is_file():
-            raise SuiteError(f"suite file '{name}' not found; give a TOML file or one of: {', '.join(BUILTIN_SUITES)}")
-        text = path.read_text()
-        source = str(path)
+    text = read_suite_text(name)
+    source = f"built-in suite '{name}'" if name in BUILTIN_SUITES and not Path(name).exists() else name
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -8,6 +8,8 @@ import numpy as np
 import pandas as pd
 from tabulate import tabulate
 
+from harness.cases import CaseKind, of_kind
+
 def _fmt(value: Any, spec: str) -> str:
     if value is None or (isinstance(value, float) and np.isnan(value)):
         return ""
@@ -36,7 +38,7 @@ def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
         roof_text = f", memory roof {roof / 1e9:.1f} GB/s" if roof else ""
         lines.append(f"- {threads} thread(s): threading layer `{info.get('threading_layer')}`{roof_text}")
     lines.append("")
-    ok = cases[(cases["status"] == "ok") & (cases["kernel"] != "triad")] if len(cases) else cases
+    ok = cases[(cases["status"] == "ok") & ~of_kind(cases, CaseKind.PROBE)] if len(cases) else cases
     for (kernel, grid, dtype, threads), grp in ok.groupby(["kernel", "grid", "dtype", "threads"], sort=False):
         grp = grp.sort_values("median_ns")
         lines.append(f"## {kernel}, {grid}, {dtype}, {threads} thread(s)")

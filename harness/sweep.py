@@ -5,65 +5,26 @@ from __future__ import annotations
 from dataclasses import replace
 
 import multiprocessing
-import os
-import queue as queue_module
-import signal
 import sys
 import tomllib
-from collections import defaultdict
-from contextlib import contextmanager
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
 from harness import machine
-from harness.plan import Group, group_bytes, plan
+from harness.cases import CaseKind, Group, of_kind
+from harness.plan import group_bytes, plan
+from harness.processes import EXIT_INTERRUPTED, StopRequest, environment
 from kernels.errors import StridewiseError
-from harness.roof import RoofCurve
 from harness.store import RunStore, RunStoreError
-from harness.suite import Suite, SuiteError, load_suite, parse_suite
-from harness.metrics import case_statistics, probe_best_bandwidth
+from harness.conversions import auto_conversions
+from harness.recording import compile_totals, drain
+from harness.suite import Suite, SuiteError, load_suite, parse_suite, read_suite_text
 from harness.summary import render_summary
 from harness.worker import WorkerPlan, worker_environment, worker_main
 
-EXIT_INTERRUPTED = {signal.SIGINT: 130, signal.SIGTERM: 143}
 FAILED_BASE = 10  # exit status 10 + N when N cases failed validation or raised (N capped at 100)
 MEMORY_SHARE = 0.8  # a group may use at most this share of the memory available at start
-
-
-@contextmanager
-def _environment(extra: dict[str, str]) -> Iterator[None]:
-    saved = {k: os.environ.get(k) for k in extra}
-    os.environ.update(extra)
-    try:
-        yield
-    finally:
-        for key, value in saved.items():
-            if value is None:
-                os.environ.pop(key, None)
-            else:
-                os.environ[key] = value
-
-
-class _Stop:
-    """Turns SIGINT/SIGTERM into a request to stop after the current sample."""
-
-    def __init__(self, event: Any) -> None:
-        self.event = event
-        self.signal: int | None = None
-
-    def __call__(self, signum: int, frame: Any) -> None:
-        self.signal = signum
-        self.event.set()
-
-    @contextmanager
-    def installed(self) -> Iterator[None]:
-        old = {s: signal.signal(s, self) for s in (signal.SIGINT, signal.SIGTERM)}
-        try:
-            yield
-        finally:
-            for s, handler in old.items():
-                signal.signal(s, handler)
 
 
 def default_run_dir(label: str, machine_id: str) -> Path:
@@ -119,7 +80,7 @@ def run_sweep(
         suite = load_suite(suite_arg)
         if repeat is not None:
             suite = replace(suite, timing=replace(suite.timing, repetitions=repeat))
-        suite_text = _suite_text(suite_arg)
+        suite_text = read_suite_text(suite_arg)
         store = RunStore(Path(out) if out else default_run_dir(suite.name, fingerprint["machine_id"]))
         if (store.path / "cases.csv").exists():
             raise RunStoreError(f"'{store.path}' already holds a run; use --resume {store.path} or another --out")
@@ -160,7 +121,7 @@ def run_sweep(
         print(f"stridewise: {len(todo)} groups, {total_cases} cases, threads {list(counts)} -> {store.path}", file=sys.stderr)
     ctx = multiprocessing.get_context("spawn")
     stop_event = ctx.Event()
-    stopper = _Stop(stop_event)
+    stopper = StopRequest(stop_event)
     progress = _progress(total_cases, quiet)
     crashed = []
     flush_bytes = suite.timing.flush_bytes or 2 * (machine.last_level_cache_bytes() or 64 << 20)
@@ -178,9 +139,9 @@ def run_sweep(
         )
         q = ctx.Queue()
         proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event), daemon=True)
-        with _environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
+        with environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
             proc.start()
-        crash = _drain(q, proc, store, metadata, progress)
+        crash = drain(q, proc, store, metadata, progress)
         proc.join()
         return crash
 
@@ -205,11 +166,11 @@ def run_sweep(
     metadata["ended"] = _now()
     interrupted = stopper.signal is not None
     metadata["status"] = "interrupted" if interrupted else ("crashed" if crashed else "complete")
-    _compile_totals(metadata)
+    compile_totals(metadata)
     store.write_metadata(metadata)
     cases = store.cases()
     store.write_summary(_summary(store, cases, metadata))
-    real = cases[cases["kernel"] != "triad"] if len(cases) else cases
+    real = cases[~of_kind(cases, CaseKind.PROBE)] if len(cases) else cases
     failed = int((real["status"] != "ok").sum()) if len(real) else 0
     if not quiet or failed or interrupted:
         print(f"stridewise: {metadata['status']}: {len(real)} cases recorded, {failed} failed; summary in {store.path / 'summary.md'}",
@@ -223,116 +184,10 @@ def run_sweep(
     return FAILED_BASE + min(failed, 100) if failed else 0
 
 
-def auto_conversions(store: RunStore, suite: Suite, threads: int) -> list[Group]:
-    """Conversion groups among each kernel's best layouts at this thread count, from the results
-    so far: the first ``conversions.auto`` layouts of tier 1 in median order, plus tier 1's
-    simplest layout (the one a recommendation prefers on a tie); every ordered pair of picks of
-    different kernels that is not measured yet."""
-    from harness.plan import ARROW, CONVERT, CaseKey
-    from harness.rank import RankOptions, _is_plain, load_runs, rank_runs
-
-    try:
-        table = rank_runs(load_runs([str(store.path)]), RankOptions()).table
-    except StridewiseError:
-        return []
-    done = store.finished_case_ids()
-    groups = []
-    for (grid, dtype), grp in table[table["threads"] == threads].groupby(["grid", "dtype"], sort=False):
-        picks: dict[str, set[str]] = {}
-        for kernel, kg in grp.groupby("kernel", sort=False):
-            top = kg[kg["tier"] == kg["tier"].min()].sort_values("median_ns")
-            chosen = list(top["layout"][: suite.conversions_auto])
-            plain = [l for l in top["layout"] if _is_plain(l)]
-            if plain:
-                chosen.append(plain[0])
-            picks[kernel] = set(chosen)
-        pairs = sorted({(a, b) for ka, la in picks.items() for kb, lb in picks.items() if ka != kb
-                        for a in la for b in lb if a != b})
-        builds = ("parallel",)
-        cases = tuple(CaseKey(CONVERT, "rows", b, f"{x}{ARROW}{y}", dtype, grid, threads) for x, y in pairs for b in builds)
-        cases = tuple(c for c in cases if c.id not in done)
-        if cases:
-            groups.append(Group(CONVERT, grid, dtype, threads, cases, tag="-auto"))
-    return groups
-
-
-def _drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progress: Any) -> str | None:
-    """Receive one worker's messages until it exits; write each finished group at once."""
-    threads = str(None)
-    crash = None
-    current = ""
-    while True:
-        try:
-            kind, payload = q.get(timeout=0.5)
-        except queue_module.Empty:
-            if not proc.is_alive():
-                return crash or f"worker exited with status {proc.exitcode} without reporting"
-            continue
-        if kind == "worker":
-            threads = str(payload["threads"])
-            metadata["workers"][threads] = payload
-            store.write_metadata(metadata)
-        elif kind == "roof":
-            metadata["workers"][threads]["roof"] = payload
-            store.write_metadata(metadata)
-        elif kind == "start":
-            current = payload
-            progress.set_postfix_str(current)
-        elif kind == "round":
-            progress.set_postfix_str(f"{current} round {payload}")
-        elif kind == "group":
-            _record_group(payload, store, metadata)
-            progress.update(sum(1 for r in payload["records"] if r["kernel"] != "triad"))
-        elif kind == "interrupted":
-            metadata["groups"][payload] = {"status": "interrupted: not recorded, rerun by --resume"}
-        elif kind == "crash":
-            crash = payload
-        elif kind == "exit":
-            return crash
-
-
-def _record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, Any]) -> None:
-    worker = metadata["workers"].get(str(result["threads"]), {})
-    roof = RoofCurve.from_dict(worker["roof"]) if "roof" in worker else None
-    by_case: dict[str, list[int]] = defaultdict(list)
-    keys = {r["case_id"]: r for r in result["records"]}
-    samples = []
-    for case_id, rnd, pos, phase, ns in result["samples"]:
-        if phase == "measure":
-            by_case[case_id].append(ns)
-        rec = keys[case_id]
-        samples.append({**{k: rec[k] for k in ("case_id", "kernel", "schedule", "build", "layout", "dtype", "grid", "threads")},
-                        "round": rnd, "position": pos, "phase": phase, "ns": ns, "repetition": result["repetition"]})
-    probes = []  # (footprint, best bytes/s) of the group's own triad probes
-    for rec in result["records"]:
-        ns = by_case.get(rec["case_id"], [])
-        if rec["kernel"] == "triad" and ns:
-            probes.append((rec["footprint_bytes"], probe_best_bandwidth(ns, rec["traffic_bytes"])))
-    probe_curve = RoofCurve(result["threads"], *map(tuple, zip(*sorted(probes)))) if probes else roof
-    cases = []
-    for rec in result["records"]:
-        row = case_statistics(rec, by_case.get(rec["case_id"], []), probe_curve, result["harness_overhead_ns"])
-        row["order_seed"] = result["order_seed"]
-        row["repetition"] = result["repetition"]
-        cases.append(row)
-    store.append(cases, samples)
-    metadata["groups"][result["group"]] = {
-        "rounds": result["rounds"],
-        "looks": result["looks"],
-        "harness_overhead_ns": result["harness_overhead_ns"],
-        "timer_overhead_ns": result["timer_overhead_ns"],
-        "flush_ns": result["flush_ns"],
-        "order_seed": result["order_seed"],
-    }
-    metadata["compiles"].extend(result["compiles"])
-    store.write_metadata(metadata)
-
-
 def _summary(store: RunStore, cases: Any, metadata: dict[str, Any]) -> str:
     """The ranking report of this run; the plain case list when nothing can be ranked yet."""
     from harness.rank import RankOptions, load_runs, rank_runs
     from harness.report import render_markdown
-    from kernels.errors import StridewiseError
 
     try:
         reference = metadata["suite"]["layouts"][0]  # speedups are also given over the suite's first layout
@@ -342,31 +197,10 @@ def _summary(store: RunStore, cases: Any, metadata: dict[str, Any]) -> str:
     return render_markdown(ranking, title=f"Sweep `{metadata['suite']['name']}`: {metadata['status']}")
 
 
-def _compile_totals(metadata: dict[str, Any]) -> None:
-    recs = metadata.get("compiles", [])
-    metadata["compile"] = {
-        "compiled": sum(1 for r in recs if not r["from_cache"]),
-        "compile_seconds": sum(r["seconds"] for r in recs if not r["from_cache"]),
-        "loaded": sum(1 for r in recs if r["from_cache"]),
-        "load_seconds": sum(r["seconds"] for r in recs if r["from_cache"]),
-    }
-
-
 def _progress(total: int, quiet: bool) -> Any:
     from tqdm import tqdm
 
     return tqdm(total=total, unit="case", disable=quiet, dynamic_ncols=True, mininterval=0.5, file=sys.stderr)
-
-
-def _suite_text(suite_arg: str | None) -> str:
-    from importlib import resources
-
-    from harness.suite import BUILTIN_SUITES
-
-    name = suite_arg or "default"
-    if name in BUILTIN_SUITES and not Path(name).exists():
-        return resources.files("harness").joinpath(f"suites/{name}.toml").read_text()
-    return Path(name).read_text()
 
 
 def _cache_dir() -> str:

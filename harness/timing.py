@@ -9,7 +9,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from harness.suite import Timing
+from harness.sampling import Timing
 
 
 class Interrupted(Exception):

@@ -24,7 +24,8 @@ from typing import Any
 
 from harness import machine
 from harness.metrics import case_statistics
-from harness.plan import Group, plan
+from harness.cases import Group
+from harness.plan import plan
 from harness.store import RunStore
 from harness.suite import Suite
 from harness.worker import worker_environment

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 from tabulate import tabulate
 
+from harness.cases import CaseKind, of_kind
 from harness.intervals import Rounds, ratio_interval
 from harness.stats import holm, slower_beyond
 
@@ -33,7 +34,7 @@ def paired_gate(samples: pd.DataFrame, cases: pd.DataFrame, threshold: float, co
     """One row per gated case: medians, head/base with its interval, adjusted p-values, verdict."""
     alpha = 1 - confidence
     measured = samples[samples["phase"] == "measure"]
-    ok = cases[(cases["status"] == "ok") & (cases["kernel"] != "triad")]
+    ok = cases[(cases["status"] == "ok") & ~of_kind(cases, CaseKind.PROBE)]
     present = {v: set(ok[ok["version"] == v]["case_id"]) for v in ("base", "head")}
     ids = sorted(present["base"] | present["head"])
     if globs:

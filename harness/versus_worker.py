@@ -45,10 +45,11 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
         raise RuntimeError(f"kernels were imported from {here}, not from the version under test at {wanted}")
     import numpy as np
 
-    from harness.plan import CaseKey, Group
-    from harness.suite import Timing
+    from harness.cases import CaseKey, Group
+    from harness.sampling import Timing
     from harness.timing import _measure
-    from harness.worker import WorkerPlan, prepare_group, start_worker
+    from harness.prepare import prepare_group
+    from harness.worker import WorkerPlan, context, start_worker
     from kernels.jit import SOURCE_HASH
 
     timing = Timing(**plan["timing"])
@@ -72,7 +73,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             g = message[1]
             group = Group(g["kernel"], g["grid"], g["dtype"], g["threads"], tuple(CaseKey(**c) for c in g["cases"]))
             prepared = None  # release the previous group's buffers first
-            prepared = prepare_group(group, wplan, {}, probes=False)
+            prepared = prepare_group(group, context(wplan, {}), probes=False)
             conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles}))
         elif message[0] == "round":
             _, rnd, order = message
@@ -82,7 +83,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             # pairing sees, not a bias of one version's process. The code is the same, and the new
             # problems are validated again before they are timed.
             prepared = None
-            prepared = prepare_group(group, wplan, {}, probes=False)
+            prepared = prepare_group(group, context(wplan, {}), probes=False)
             rows = []
             for position, case_id in enumerate(c for c in order if c in prepared.calls):
                 if case_id in prepared.prepare:

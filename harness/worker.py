@@ -15,8 +15,9 @@ import traceback
 from dataclasses import dataclass
 from typing import Any
 
-from harness.plan import ARROW, CONVERT, Group
-from harness.suite import Timing
+from harness.cases import CaseKind, Group
+from harness.prepare import Context, prepare_group
+from harness.sampling import Timing
 
 
 @dataclass(frozen=True)
@@ -108,129 +109,19 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
         queue.put(("group", result))
 
 
-def _schedule(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:
-    from kernels.base import Schedule
-
-    schedule = kernel.schedule(name)
-    if kernel.name in options and schedule.params:
-        given = dict(options[kernel.name])
-        params = tuple((k, given.get(k, v)) for k, v in schedule.params)
-        schedule = Schedule(schedule.name, schedule.summary, params)
-    return schedule
-
-
-@dataclass
-class Prepared:
-    """A group ready to time: a record per case, the bound calls of the valid ones, input restorers."""
-
-    records: dict[str, dict[str, Any]]
-    calls: dict[str, Any]
-    prepare: dict[str, Any]
-    compiles: list[dict[str, Any]]
-
-
-def prepare_group(group: Group, plan: WorkerPlan, seen_reports: dict, probes: bool = True) -> Prepared:
-    """Build, compile and validate every case of a group (never timed); add roof probes if asked."""
-    import numpy as np
-
-    from harness.timing import overhead_ns
-    from kernels.base import Bound
-    from kernels.grid import Extents
-    from kernels.jit import ensure_compiled, vector_report
-    from kernels.parallel import first_touch
-    from kernels.registry import get_kernel
-
-    extents = Extents.parse(group.grid)
-    toucher = first_touch if plan.timing.first_touch else None
-    records: dict[str, dict[str, Any]] = {}
-    calls: dict[str, Bound] = {}
-    prepare: dict[str, Any] = {}
-    compiles: list[dict[str, Any]] = []
-    options = dict(plan.kernel_options)
-
-    def compile_for(dispatcher: Any, args: tuple) -> dict[str, Any] | None:
-        rec = ensure_compiled(dispatcher, args)
-        if rec is not None:
-            compiles.append({"name": rec.name, "signature": rec.signature, "seconds": rec.seconds, "from_cache": rec.from_cache})
-        return None if rec is None else {"seconds": rec.seconds, "from_cache": rec.from_cache}
-
-    if group.kernel == CONVERT:
-        from kernels.convert import conversion_args
-        from kernels.state import State
-
-        itemsize = np.dtype(group.dtype).itemsize
-        logical = np.random.default_rng(plan.seed).standard_normal(extents.shape).astype(group.dtype)
-        for case in group.cases:
-            rec = _base_record(case, "conversion", 0, 2 * extents.points * itemsize, 0)
-            records[case.id] = rec
-            try:
-                src_spec, dst_spec = case.layout.split(ARROW)
-                src = State.zeros(src_spec, extents, group.dtype, toucher)
-                src.assign_logical(logical)
-                dst = State.zeros(dst_spec, extents, group.dtype, toucher)
-                rec["footprint_bytes"] = src.data.nbytes + dst.data.nbytes
-                impl, args = conversion_args(src, dst)
-                dispatcher = getattr(impl, case.build)
-                info = compile_for(dispatcher, args)
-                rec.update(_compile_fields(info))
-                dispatcher(*args)
-                if not np.array_equal(dst.to_logical(), logical):
-                    rec.update(status="failed", message="conversion is not bit-exact")
-                    continue
-                rec.update(status="ok", max_rel_error=0.0, tolerance=0.0)
-                compile_for(impl.empty, args)
-                rec["overhead_ns"] = overhead_ns(lambda: impl.empty(*args))
-                calls[case.id] = Bound(dispatcher, args)
-            except Exception as exc:  # noqa: BLE001 - recorded as the case's error
-                rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
-    else:
-        kernel = get_kernel(group.kernel)
-        problems: dict[str, Any] = {}
-        for case in group.cases:
-            traffic = kernel.traffic_bytes(extents, group.dtype)
-            rec = _base_record(case, kernel.family, kernel.footprint(case.layout, extents, group.dtype), traffic, kernel.flops(extents))
-            records[case.id] = rec
-            try:
-                if case.layout not in problems:
-                    problems[case.layout] = kernel.make_problem(case.layout, extents, group.dtype, plan.seed, toucher)
-                problem = problems[case.layout]
-                schedule = _schedule(kernel, case.schedule, options)
-                impl, args = kernel.implementation(problem, schedule)
-                dispatcher = getattr(impl, case.build)
-                rec.update(_compile_fields(compile_for(dispatcher, args)))
-                check = kernel.validate(problem, schedule, case.build)
-                rec.update(max_rel_error=check.max_rel_error, tolerance=check.tolerance)
-                if not check.ok:
-                    rec.update(status="failed", message=check.message)
-                    continue
-                compile_for(impl.empty, args)
-                rec["overhead_ns"] = overhead_ns(lambda impl=impl, args=args: impl.empty(*args))
-                if plan.inspect_vectorisation:
-                    import numba
-
-                    key = impl.name + str(tuple(numba.typeof(a) for a in args))
-                    if key not in seen_reports:
-                        seen_reports[key] = vector_report(impl, args, parallel=False)
-                    rec.update({k: seen_reports[key][k] for k in ("vectorised", "vector_bits")})
-                rec["status"] = "ok"
-                calls[case.id] = Bound(dispatcher, args)
-                if kernel.overwrites_inputs:
-                    prepare[case.id] = _restorer(problem)
-            except Exception as exc:  # noqa: BLE001 - recorded as the case's error
-                rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
-    if probes:
-        _add_roof_probes(group, records, calls)
-    return Prepared(records, calls, prepare, compiles)
+def context(plan: WorkerPlan, seen_reports: dict[str, dict[str, Any]]) -> Context:
+    """What the preparers need from a worker's plan."""
+    return Context(plan.seed, plan.timing.first_touch, dict(plan.kernel_options), plan.inspect_vectorisation, seen_reports)
 
 
 def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, queue: Any) -> dict[str, Any]:
     from harness.timing import overhead_ns, sample_rounds
 
-    prepared = prepare_group(group, plan, seen_reports)
+    prepared = prepare_group(group, context(plan, seen_reports))
     records, calls, prepare, compiles = prepared.records, prepared.calls, prepared.prepare, prepared.compiles
     seed = f"{plan.seed}:{group.label}"
     wants_more = None
-    if group.kernel != CONVERT and plan.timing.max_seconds > 0:
+    if group.kind is CaseKind.KERNEL and plan.timing.max_seconds > 0:
         from harness.adaptive import LOOK_ALPHA, leader_undecided
 
         layout_of = {cid: r["layout"] for cid, r in records.items()
@@ -265,82 +156,9 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
     }
 
 
-def _restorer(problem: Any) -> Any:
-    """Copies of a problem's input buffers and a function that writes them back with the same
-    per-thread block partition as first touch (so restores neither move pages nor warm one core)."""
-    import numpy as np
-
-    from kernels.parallel import parallel_copy
-
-    saved = [(st.data, st.data.copy()) for st in problem.fields.values()]
-    saved += [(arr, arr.copy()) for arr in problem.arrays.values()]
-
-    def restore() -> None:
-        for live, pristine in saved:
-            parallel_copy(np.asarray(live), pristine)
-
-    return restore
-
-
 #: Round ids of repetition r start at r times this, so a case's rounds never collide across repetitions.
 REPETITION_ROUNDS = 100_000
-
-#: At most this many triad probes per group (distinct footprints beyond it share the nearest).
-MAX_PROBES = 3
 
 
 def _noop() -> None:
     return None
-
-
-def _add_roof_probes(group: Group, records: dict[str, dict[str, Any]], calls: dict[str, Any]) -> None:
-    """Add STREAM-triad cases sized like the group's footprints to the group's own rounds.
-
-    Timed interleaved with the kernels, a probe sees the same cache and machine state they do,
-    so a case's percent of roof compares like with like.
-    """
-    import numpy as np
-
-    from harness.plan import CaseKey
-    from kernels.parallel import thread_count
-    from kernels.triad import TRIAD, triad_arrays, triad_bytes
-
-    sizes = sorted({r["footprint_bytes"] for r in records.values() if r["status"] == "ok" and r["footprint_bytes"]})
-    if len(sizes) > MAX_PROBES:
-        sizes = [sizes[round(i * (len(sizes) - 1) / (MAX_PROBES - 1))] for i in range(MAX_PROBES)]
-    for size in sizes:
-        a, b, c = triad_arrays(size, group.dtype)
-        # The schedule field names the group, so probes of different groups never share an id.
-        key = CaseKey("triad", f"probe-{group.kernel}{group.tag}", "parallel", f"{a.nbytes * 3}B", group.dtype, group.grid, group.threads)
-        rec = _base_record(key, "roof", 3 * a.nbytes, triad_bytes(a.shape[0], a.itemsize), 2 * a.shape[0])
-        rec.update(status="ok", message="roof probe")
-        records[key.id] = rec
-        nchunks = thread_count()
-        scalar = np.dtype(group.dtype).type(3)
-        calls[key.id] = lambda a=a, b=b, c=c: TRIAD.parallel(a, b, c, scalar, nchunks)
-
-
-def _base_record(case: Any, family: str, footprint: int, traffic: int, flops: int) -> dict[str, Any]:
-    rec = case.as_dict()
-    rec.update(
-        family=family,
-        status="pending",
-        message="",
-        max_rel_error=None,
-        tolerance=None,
-        footprint_bytes=footprint,
-        traffic_bytes=traffic,
-        flops=flops,
-        overhead_ns=None,
-        compile_s=None,
-        loaded_from_cache=None,
-        vectorised=None,
-        vector_bits=None,
-    )
-    return rec
-
-
-def _compile_fields(info: dict[str, Any] | None) -> dict[str, Any]:
-    if info is None:
-        return {}
-    return {"compile_s": info["seconds"], "loaded_from_cache": info["from_cache"]}

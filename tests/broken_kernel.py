@@ -12,7 +12,8 @@ from typing import Any
 from kernels.base import Problem, Schedule
 from kernels.jit import Compiled
 from kernels.registry import register
-from kernels.stencils.laplacian import BLOCK, Laplacian
+from kernels.stencils.common import BLOCK
+from kernels.stencils.laplacian import Laplacian
 
 WRONG = Schedule("wrong", "the block schedule with its scale doubled: a wrong answer")
 
@@ -24,7 +25,8 @@ class Broken(Laplacian):
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         impl, args = super().implementation(problem, BLOCK)
         if schedule.name == "wrong":
-            args = args[:10] + (args[10] * 2,) + args[11:]  # the 1/h^2 factor
+            four, scale = args[13]  # the walk's constants: (4, 1/h^2)
+            args = args[:13] + ((four, scale * 2),) + args[14:]
         return impl, args
 
 

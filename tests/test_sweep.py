@@ -174,6 +174,8 @@ def test_harness_median_agrees_with_timeit() -> None:
         ("[timing]\nwarmup = 'two'\n", "timing.warmup must be int"),
         ("[kernels]\nselect = ['laplacian']\nschedules = ['diagonal']\n", "unknown schedule 'diagonal'"),
         ("[grid]\nsizes = ['var=4000,z=4000,y=4000,x=4000']\n[layouts]\nspecs=['var.z.y.x']\n", "GiB"),
+        ("[kernels]\nselect = ['laplacian', 'varcoef']\noptions = {laplacian = {strip_width = 64}}\n",
+         "kernel 'laplacian' has no schedule with a strip width; kernels of this suite that take one: varcoef"),
     ],
 )
 def test_bad_suites_are_one_line_errors_exit_2(tmp_path: Path, text: str, message: str) -> None:

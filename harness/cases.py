@@ -1,0 +1,98 @@
+"""What is timed: case keys, groups of cases timed together, and the three kinds of case.
+
+A case is a *kernel* case (a registered kernel in one layout, schedule and build), a
+*conversion* (copying the state from one layout to another) or a *probe* (a STREAM triad sized
+like the group's buffers, the roof the group's figures are measured against). The kind follows
+from the ``kernel`` column, whose two special values the registry reserves.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from enum import Enum
+from typing import Any
+
+try:
+    from kernels.registry import CONVERSION_NAME, PROBE_NAME
+except ImportError:  # the kernels of an older version, run by the side-by-side gate, predate these names
+    CONVERSION_NAME, PROBE_NAME = "convert", "triad"
+
+CONVERT = CONVERSION_NAME  # the kernel column of a conversion
+PROBE = PROBE_NAME  # the kernel column of a roof probe
+ARROW = "->"  # joins the two layouts of a conversion: "FROM->TO"
+
+
+class CaseKind(str, Enum):
+    KERNEL = "kernel"
+    CONVERSION = "conversion"
+    PROBE = "probe"
+
+    @classmethod
+    def of(cls, kernel: str) -> CaseKind:
+        """The kind of a case from its kernel name."""
+        return cls.CONVERSION if kernel == CONVERT else cls.PROBE if kernel == PROBE else cls.KERNEL
+
+
+def of_kind(frame: Any, *kinds: CaseKind) -> Any:
+    """Boolean mask of the rows of a cases or samples frame whose kind is one of ``kinds``."""
+    return frame["kernel"].map(CaseKind.of).isin(kinds)
+
+
+@dataclass(frozen=True, order=True)
+class CaseKey:
+    """One timed case: every key that identifies it."""
+
+    kernel: str
+    schedule: str
+    build: str  # "parallel" or "serial" (the parallel=False build, timed at 1 thread)
+    layout: str  # a layout spec, or "FROM->TO" for a conversion
+    dtype: str
+    grid: str
+    threads: int
+
+    @property
+    def id(self) -> str:
+        return "|".join((self.kernel, self.schedule, self.build, self.layout, self.dtype, self.grid, str(self.threads)))
+
+    @property
+    def kind(self) -> CaseKind:
+        return CaseKind.of(self.kernel)
+
+    def as_dict(self) -> dict[str, object]:
+        return {
+            "case_id": self.id,
+            "kernel": self.kernel,
+            "schedule": self.schedule,
+            "build": self.build,
+            "layout": self.layout,
+            "dtype": self.dtype,
+            "grid": self.grid,
+            "threads": self.threads,
+        }
+
+
+@dataclass(frozen=True)
+class Group:
+    """Cases timed interleaved in one set of rounds: same kernel, grid, dtype and thread count."""
+
+    kernel: str
+    grid: str
+    dtype: str
+    threads: int
+    cases: tuple[CaseKey, ...]
+    tag: str = ""  # distinguishes a second group of the same kernel (automatic conversions)
+    repetition: int = 0  # which run of the group (suite timing.repetitions)
+
+    @property
+    def kind(self) -> CaseKind:
+        return CaseKind.of(self.kernel)
+
+    @property
+    def label(self) -> str:
+        rep = f" rep{self.repetition + 1}" if self.repetition else ""
+        return f"{self.kernel}{self.tag} {self.grid} {self.dtype} {self.threads}t{rep}"
+
+
+def probe_schedule(kernel: str, tag: str = "") -> str:
+    """The schedule field of a group's roof probes: it names the group, so probe ids never clash."""
+    return f"probe-{kernel}{tag}"
