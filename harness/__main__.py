@@ -2,7 +2,7 @@
 
 import sys
 
-from harness.cli import main
+from harness.commands import main
 
 if __name__ == "__main__":  # spawned worker processes import this module without running it
     sys.exit(main())

@@ -21,7 +21,7 @@ from harness.cases import ARROW, CaseKind, of_kind
 def _weights(runs: Any, options: Any, machine: str) -> dict[str, float]:
     if options.mix is not None:
         return options.mix
-    mix = runs.metadata[machine].get("suite", {}).get("mix") or []
+    mix = runs.metadata[machine].mix
     return {k: float(v) for k, v in mix}
 
 

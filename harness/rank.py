@@ -32,7 +32,7 @@ from harness import metrics
 from harness.intervals import CONFIDENCE, Rounds
 from harness.cases import CaseKind, of_kind, probe_schedule
 from harness.stats import holm, slower_beyond, split_rounds
-from harness.store import RunStore, RunStoreError
+from harness.store import RunMetadata, RunStore, RunStoreError
 from kernels.errors import StridewiseError
 from kernels.notation import parse_layout
 
@@ -58,7 +58,7 @@ class Runs:
 
     cases: pd.DataFrame
     samples: pd.DataFrame
-    metadata: dict[str, dict[str, Any]]  # machine id -> metadata (the first run seen)
+    metadata: dict[str, RunMetadata]  # machine id -> metadata (the first run seen)
 
 
 def load_runs(paths: list[str]) -> Runs:
@@ -66,12 +66,11 @@ def load_runs(paths: list[str]) -> Runs:
     ``block`` (one per run and repetition), so repeated runs pool as blocks of rounds."""
     cases_list, samples_list, meta = [], [], {}
     for index, path in enumerate(paths):
-        store = RunStore(Path(path))
-        md = store.metadata()
-        machine = md.get("fingerprint", {}).get("machine_id", Path(path).name)
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            cases, samples = store.cases(), store.samples()
+            run = RunStore(Path(path)).read()
+        md, cases, samples = run.metadata, run.cases, run.samples
+        machine = md.machine_id or Path(path).name
         for w in caught:
             print(f"stridewise: warning: {w.message}", file=sys.stderr)
         if cases.empty:
@@ -183,7 +182,7 @@ def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | N
     frame["flops"] = [c["flops"] for c in case]
     frame["footprint_bytes"] = [c.get("footprint_bytes", np.nan) for c in case]
     frame["roof_gbps"] = [c.get("roof_gbps", np.nan) for c in case]
-    frame["overhead_bound"] = [str(c.get("overhead_bound")) == "True" for c in case]
+    frame["overhead_bound"] = [c.get("overhead_bound") is True for c in case]
     frame["vectorised"] = [c.get("vectorised") for c in case]
     frame["plain"] = frame["layout"].map(_is_plain)
     frame = frame.sort_values(["tier", "median_ns"], na_position="last").reset_index(drop=True)
@@ -226,7 +225,7 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
         probes = _probes_of(cases, key)
         wanted = set(grp["case_id"]) | set(probes["case_id"])  # serial builds are in grp
         mine = runs.samples[runs.samples["case_id"].isin(wanted) & (runs.samples["machine"] == key[0])]
-        looks = max_looks(runs.metadata.get(key[0], {}))
+        looks = runs.metadata[key[0]].timing().max_looks()
         group_options = replace(options, alpha=options.alpha / looks)
         ranked, group_rounds = rank_group(grp, mine, group_options, probes)
         ranked["looks"] = looks
@@ -246,18 +245,6 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
     mix = kernel_mix(table, rounds, runs, options)
     return Ranking(table, scaling, flips, mix, _machine_diffs(table), failed, runs, options, rounds,
                    repetition_agreement(table, rounds))
-
-
-def max_looks(metadata: dict[str, Any]) -> int:
-    """Looks the run's adaptive policy allowed each group (1 when adaptive effort was off)."""
-    from harness.sampling import Timing
-
-    timing = metadata.get("suite", {}).get("timing") or {}
-    known = {k: v for k, v in timing.items() if k in Timing.__dataclass_fields__}
-    try:
-        return Timing(**known).max_looks()
-    except TypeError:
-        return 1
 
 
 def repetition_agreement(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds]) -> pd.DataFrame:

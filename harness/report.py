@@ -13,6 +13,7 @@ from tabulate import tabulate
 from harness.intervals import Interval
 from harness.metrics import OVERHEAD_MULTIPLE
 from harness.rank import Ranking
+from harness.store import RunMetadata, recorded_false
 
 FAMILY_WORDS = {"columns": "column solves", "stencils": "stencils"}
 TABLE_COLUMNS = ["rank", "tier", "layout", "schedule", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "x best",
@@ -104,20 +105,20 @@ def _power_note(grp: pd.DataFrame, alpha: float) -> str | None:
             f"carry no information. Run at least {needed} measured rounds (timing.min_repeats).")
 
 
-def _machine_header(machine: str, md: dict[str, Any]) -> list[str]:
-    fp = md.get("fingerprint", {})
+def _machine_header(machine: str, md: RunMetadata) -> list[str]:
+    fp = md.fingerprint
     roofs = []
-    for threads, info in sorted(md.get("workers", {}).items(), key=lambda kv: int(kv[0])):
+    for threads, info in sorted(md.workers.items(), key=lambda kv: int(kv[0])):
         roof = info.get("roof", {}).get("memory_roof_bytes_per_s")
         if roof:
             roofs.append(f"{threads}t {roof / 1e9:.1f} GB/s")
-    comp = md.get("compile", {})
+    comp = md.compile_totals
     lines = [
         f"Machine `{machine}`: {fp.get('cpu_model', '?')}, {fp.get('usable_cores', '?')} usable cores, "
         f"numba {fp.get('numba', '?')} on `{fp.get('numba_target', {}).get('cpu_name', '?')}`, "
-        f"layer `{next(iter(md.get('workers', {}).values()), {}).get('threading_layer', '?')}`; "
-        f"memory roof {', '.join(roofs) or 'not measured'}; run `{md.get('suite', {}).get('name', '?')}` "
-        f"({md.get('status', '?')}), commit `{fp.get('commit') or 'unknown'}`, kernels `{fp.get('kernels_source_hash', '?')}`.",
+        f"layer `{next(iter(md.workers.values()), {}).get('threading_layer', '?')}`; "
+        f"memory roof {', '.join(roofs) or 'not measured'}; run `{md.suite_name}` "
+        f"({md.status}), commit `{fp.get('commit') or 'unknown'}`, kernels `{fp.get('kernels_source_hash', '?')}`.",
     ]
     if comp:
         lines.append(
@@ -141,7 +142,7 @@ def _group_table(grp: pd.DataFrame) -> tuple[str, list[str]]:
         flags = []
         if e["overhead_bound"]:
             flags.append("overhead-bound")
-        if str(e.get("vectorised")) == "False":
+        if recorded_false(e.get("vectorised")):
             flags.append("scalar")
         if e.get("above_roof"):
             flags.append(">roof")
@@ -159,8 +160,8 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     out = [f"# {title}", ""]
     for machine, md in r.runs.metadata.items():
         out += _machine_header(machine, md)
-        if md.get("imported", {}).get("raw_samples") is False:
-            out.append(f"Imported from {md['imported']['source']} without raw samples: ranked on the recorded medians, "
+        if not md.has_raw_samples:
+            out.append(f"Imported from {md.raw['imported']['source']} without raw samples: ranked on the recorded medians, "
                        "without tiers, dispersion or intervals.")
     reference = f" `{opts.reference}`" if opts.reference else ""
     out += [

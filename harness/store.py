@@ -11,9 +11,11 @@ import io
 import json
 import os
 import warnings
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from harness.sampling import Timing
 from kernels.errors import StridewiseError
 
 SAMPLES = "samples.csv"
@@ -31,6 +33,72 @@ CASE_COLUMNS = [
 ]
 #: Columns added after the first format; a reader fills them in when an older run lacks them.
 OPTIONAL_COLUMNS = {"repetition": 0, "version": ""}
+#: Columns holding True, False or nothing; read back as Python booleans or None (CSV holds text).
+BOOLEAN_COLUMNS = ("overhead_bound", "loaded_from_cache", "vectorised")
+
+
+@dataclass(frozen=True)
+class RunMetadata:
+    """A run's ``metadata.json``, read once, with typed access to what readers use."""
+
+    raw: dict[str, Any]
+
+    @property
+    def fingerprint(self) -> dict[str, Any]:
+        return self.raw.get("fingerprint") or {}
+
+    @property
+    def machine_id(self) -> str | None:
+        return self.fingerprint.get("machine_id")
+
+    @property
+    def suite(self) -> dict[str, Any]:
+        return self.raw.get("suite") or {}
+
+    @property
+    def suite_name(self) -> str:
+        return str(self.suite.get("name", "?"))
+
+    @property
+    def status(self) -> str:
+        return str(self.raw.get("status", "?"))
+
+    @property
+    def workers(self) -> dict[str, dict[str, Any]]:
+        """Per thread count (text), what the worker reported: threading layer, roof, placement."""
+        return self.raw.get("workers") or {}
+
+    @property
+    def compile_totals(self) -> dict[str, Any]:
+        return self.raw.get("compile") or {}
+
+    @property
+    def mix(self) -> list[tuple[str, float]]:
+        return [tuple(pair) for pair in self.suite.get("mix") or []]  # type: ignore[misc]
+
+    @property
+    def versions(self) -> dict[str, Any]:
+        return self.raw.get("versions") or {}
+
+    @property
+    def has_raw_samples(self) -> bool:
+        """False for a run imported from summary figures only (no per-round samples)."""
+        return (self.raw.get("imported") or {}).get("raw_samples") is not False
+
+    def timing(self) -> Timing:
+        """The sampling policy the run used (defaults for fields an older run did not record)."""
+        recorded = self.suite.get("timing") or {}
+        return Timing(**{k: v for k, v in recorded.items() if k in Timing.__dataclass_fields__})
+
+
+@dataclass(frozen=True)
+class RunData:
+    """Everything a reader needs from one run directory, typed."""
+
+    path: Path
+    metadata: RunMetadata
+    cases: Any  # pandas DataFrame, one row per case (and repetition)
+    samples: Any  # pandas DataFrame, one row per sample
 
 
 class RunStoreError(StridewiseError):
@@ -123,7 +191,14 @@ class RunStore:
         for column, default in OPTIONAL_COLUMNS.items():
             if column not in frame:
                 frame[column] = default
+        for column in BOOLEAN_COLUMNS:
+            if column in frame:
+                frame[column] = frame[column].map(_boolean).astype(object)
         return frame
+
+    def read(self) -> RunData:
+        """The run's metadata, cases and samples, read and typed once."""
+        return RunData(self.path, RunMetadata(self.metadata()), self.cases(), self.samples())
 
     def cases(self) -> "Any":
         return self.read_table(CASES, CASE_COLUMNS)
@@ -142,3 +217,16 @@ class RunStore:
             return set()
         cases = self.cases()
         return set(zip(cases["case_id"].astype(str), cases["repetition"].astype(int)))
+
+
+def recorded_false(value: Any) -> bool:
+    """True only for a recorded False, not for a missing value (a boolean cell of a frame)."""
+    return value is not None and value == value and not value
+
+
+def _boolean(value: Any) -> bool | None:
+    """A boolean cell as written (True/False, or their text) or None when empty."""
+    if value is True or value is False:
+        return value
+    text = str(value)
+    return True if text == "True" else False if text == "False" else None

@@ -9,6 +9,7 @@ import pandas as pd
 from tabulate import tabulate
 
 from harness.cases import CaseKind, of_kind
+from harness.store import RunMetadata, recorded_false
 
 def _fmt(value: Any, spec: str) -> str:
     if value is None or (isinstance(value, float) and np.isnan(value)):
@@ -16,24 +17,23 @@ def _fmt(value: Any, spec: str) -> str:
     return format(value, spec)
 
 
-def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
+def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
     """Markdown: a compact machine header, per group a ranked table, then failures."""
-    fp = metadata.get("fingerprint", {})
-    suite = metadata.get("suite", {})
+    fp = metadata.fingerprint
     lines = [
-        f"# Sweep `{suite.get('name', '?')}`: {metadata.get('status', '?')}",
+        f"# Sweep `{metadata.suite_name}`: {metadata.status}",
         "",
         f"Machine `{fp.get('machine_id', '?')}`: {fp.get('cpu_model', '?')}, {fp.get('usable_cores', '?')} usable cores, "
         f"numba {fp.get('numba', '?')} ({fp.get('numba_target', {}).get('cpu_name', '?')}), "
         f"commit `{fp.get('commit') or 'unknown'}`, kernels source `{fp.get('kernels_source_hash', '?')}`.",
     ]
-    comp = metadata.get("compile", {})
+    comp = metadata.compile_totals
     if comp:
         lines.append(
             f"Compiled {comp.get('compiled', 0)} specialisations in {comp.get('compile_seconds', 0):.1f} s; "
             f"loaded {comp.get('loaded', 0)} from cache in {comp.get('load_seconds', 0):.1f} s."
         )
-    for threads, info in sorted(metadata.get("workers", {}).items(), key=lambda kv: int(kv[0])):
+    for threads, info in sorted(metadata.workers.items(), key=lambda kv: int(kv[0])):
         roof = info.get("roof", {}).get("memory_roof_bytes_per_s")
         roof_text = f", memory roof {roof / 1e9:.1f} GB/s" if roof else ""
         lines.append(f"- {threads} thread(s): threading layer `{info.get('threading_layer')}`{roof_text}")
@@ -46,9 +46,9 @@ def render_summary(cases: pd.DataFrame, metadata: dict[str, Any]) -> str:
         rows = []
         for _, r in grp.iterrows():
             flags = []
-            if r.get("overhead_bound") is True or r.get("overhead_bound") == "True":
+            if r.get("overhead_bound") is True:
                 flags.append("overhead-bound")
-            if r.get("vectorised") in (False, "False"):
+            if recorded_false(r.get("vectorised")):
                 flags.append("scalar")
             rows.append(
                 [

@@ -16,7 +16,7 @@ from harness.cases import CaseKind, Group, of_kind
 from harness.plan import group_bytes, plan
 from harness.processes import EXIT_INTERRUPTED, StopRequest, environment
 from kernels.errors import StridewiseError
-from harness.store import RunStore, RunStoreError
+from harness.store import RunMetadata, RunStore, RunStoreError
 from harness.conversions import auto_conversions
 from harness.recording import compile_totals, drain
 from harness.suite import Suite, SuiteError, load_suite, parse_suite, read_suite_text
@@ -193,7 +193,7 @@ def _summary(store: RunStore, cases: Any, metadata: dict[str, Any]) -> str:
         reference = metadata["suite"]["layouts"][0]  # speedups are also given over the suite's first layout
         ranking = rank_runs(load_runs([str(store.path)]), RankOptions(reference=reference))
     except StridewiseError:
-        return render_summary(cases, metadata)
+        return render_summary(cases, RunMetadata(metadata))
     return render_markdown(ranking, title=f"Sweep `{metadata['suite']['name']}`: {metadata['status']}")
 
 

@@ -19,6 +19,7 @@ from tabulate import tabulate
 from harness.cases import CaseKind, of_kind
 from harness.intervals import Rounds, ratio_interval
 from harness.stats import holm, slower_beyond
+from harness.store import RunMetadata
 
 DRIFT_NOTE = (
     "Mode: side by side. Both versions ran in this one run on this machine, alternating one round of a group "
@@ -63,8 +64,8 @@ def paired_gate(samples: pd.DataFrame, cases: pd.DataFrame, threshold: float, co
     return pd.DataFrame(rows)
 
 
-def render_versus(table: pd.DataFrame, metadata: dict[str, Any], threshold: float, confidence: float) -> str:
-    versions = metadata.get("versions", {})
+def render_versus(table: pd.DataFrame, metadata: RunMetadata, threshold: float, confidence: float) -> str:
+    versions = metadata.versions
 
     def describe(label: str) -> str:
         v = versions.get(label, {})
@@ -75,8 +76,8 @@ def render_versus(table: pd.DataFrame, metadata: dict[str, Any], threshold: floa
     verdict = f"FAIL: regression in {len(slower)} case(s)" if len(slower) else "PASS: no case slower beyond the threshold"
     lines = [
         f"# Side-by-side gate: {verdict}", "",
-        f"Base {describe('base')}; head {describe('head')}; machine `{metadata.get('fingerprint', {}).get('machine_id', '?')}`, "
-        f"{metadata.get('rounds', '?')} paired rounds per group.", "",
+        f"Base {describe('base')}; head {describe('head')}; machine `{metadata.machine_id or '?'}`, "
+        f"{metadata.raw.get('rounds', '?')} paired rounds per group.", "",
         DRIFT_NOTE, "",
         f"A case is `slower` when head takes more than {1 + threshold:.2f}x base's time in a one-sided paired Wilcoxon "
         f"signed-rank test, Holm-corrected over the cases at level {1 - confidence:.2g} (`faster` likewise); "

@@ -10,7 +10,7 @@ import sys
 import pandas as pd
 import pytest
 
-from harness.cli import main
+from harness.commands import main
 from kernels.grid import Extents
 from kernels.state import State
 

@@ -12,9 +12,10 @@ import numpy as np
 import pytest
 
 from harness.gate import GateOptions, compare
+from harness.store import RunMetadata
 
 ROOT = Path(__file__).resolve().parent.parent
-META = {"fingerprint": {"machine_id": "m"}}
+META = RunMetadata({"fingerprint": {"machine_id": "m"}})
 
 
 def _run_stats(times: dict[str, float], rng: np.random.Generator, between: float, within: float, n: int = 15) -> dict:
@@ -187,7 +188,7 @@ def test_bad_gate_input_exits_2(tmp_path: Path, smoke_run: Path, capsys: pytest.
     """In-process through the CLI's main(): the same exit codes and messages as the command."""
     from types import SimpleNamespace
 
-    from harness.cli import main
+    from harness.commands import main
 
     def _cli(*args: str) -> SimpleNamespace:
         code = main(list(args))

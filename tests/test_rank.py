@@ -14,7 +14,7 @@ import pytest
 
 from harness.rank import RankOptions, Runs, rank_group, rank_runs, tiers
 from harness.report import render, render_markdown
-from harness.store import CASE_COLUMNS, SAMPLE_COLUMNS
+from harness.store import CASE_COLUMNS, SAMPLE_COLUMNS, RunMetadata
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -87,7 +87,7 @@ def test_best_schedule_is_chosen_on_one_half_and_reported_on_the_other() -> None
 
 def _ranking(cases: pd.DataFrame, samples: pd.DataFrame, mix: dict[str, float] | None = None):
     meta = {"m": {"fingerprint": {"machine_id": "m", "cpu_model": "test cpu"}, "suite": {"name": "synthetic", "mix": []}, "workers": {}}}
-    return rank_runs(Runs(cases, samples, meta), RankOptions(reference="var.z.y.x", mix=mix))
+    return rank_runs(Runs(cases, samples, {k: RunMetadata(v) for k, v in meta.items()}), RankOptions(reference="var.z.y.x", mix=mix))
 
 
 def test_markdown_tables_read_back_equal_the_numbers() -> None:

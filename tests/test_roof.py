@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from harness.roof import RoofCurve, footprints
-from harness.roof_cmd import parse_bytes
+from harness.commands.roof import parse_bytes
 from kernels.errors import StridewiseError
 from kernels.triad import TRIAD, triad_arrays, triad_bytes
 

@@ -176,17 +176,18 @@ def test_exports_carry_the_intervals(fmt: str) -> None:
 
 def test_adaptive_runs_rank_at_alpha_over_looks_and_say_when_that_is_out_of_reach() -> None:
     from harness.rank import RankOptions, Runs, rank_runs
+    from harness.store import RunMetadata
 
     rng = np.random.default_rng(12)
     data = synthetic_rounds({"var.z.y.x": 1.0, "y.x.z.var": 2.0, "var.y.x.z": 2.0, "z.var.y.x": 2.0}, 14, 0.01, rng)
     cases, samples = _frames({(l, "s"): s for l, s in data.items()})
     timing = {"min_repeats": 14, "max_rounds": 56, "max_seconds": 6.0}
     meta = {"m": {"fingerprint": {"machine_id": "m"}, "suite": {"name": "s", "mix": [], "timing": timing}, "workers": {}}}
-    ranking = rank_runs(Runs(cases, samples, meta), RankOptions())
+    ranking = rank_runs(Runs(cases, samples, {"m": RunMetadata(meta["m"])}), RankOptions())
     assert set(ranking.table["looks"]) == {3}
     # 7 reporting rounds: smallest p 2**-7 = 0.0078 > 0.05 / 3 / 3 comparisons: nothing can be separated.
     assert set(ranking.table["tier"]) == {1}
     text = render_markdown(ranking)
     assert "Too few rounds to separate layouts" in text and "over 3 looks" in text
     plain = {"m": {**meta["m"], "suite": {"name": "s", "mix": []}}}
-    assert max(rank_runs(Runs(cases, samples, plain), RankOptions()).table["tier"]) == 2
+    assert max(rank_runs(Runs(cases, samples, {"m": RunMetadata(plain["m"])}), RankOptions()).table["tier"]) == 2

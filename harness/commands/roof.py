@@ -20,6 +20,15 @@ ROOF_TIMEOUT_S = 900.0
 _UNITS = {"": 1, "B": 1, "KIB": 1 << 10, "MIB": 1 << 20, "GIB": 1 << 30, "KB": 10**3, "MB": 10**6, "GB": 10**9}
 
 
+def add_parser(sub: argparse._SubParsersAction) -> None:
+    roof_p = sub.add_parser("roof", help="measure and print the triad bandwidth curve of this machine")
+    roof_p.add_argument("--threads", default=None, help="thread counts, comma separated (default: 1 and the usable core count)")
+    roof_p.add_argument("--max-bytes", default="1GiB", help="largest triad footprint, e.g. 512MiB, 2GiB")
+    roof_p.add_argument("--format", default="md", choices=("md", "csv", "json"))
+    roof_p.add_argument("--plot", metavar="PNG", help="also plot the curve (needs the 'plot' extra)")
+    roof_p.set_defaults(func=run_roof)
+
+
 def parse_bytes(text: str) -> int:
     """'512MiB' -> 536870912; plain integers are bytes."""
     m = re.fullmatch(r"\s*(\d+)\s*([A-Za-z]*)\s*", text)
