@@ -12,6 +12,8 @@ from dataclasses import dataclass
 from enum import Enum
 from typing import Any
 
+from kernels.errors import StridewiseError
+
 try:
     from kernels.registry import CONVERSION_NAME, PROBE_NAME
 except ImportError:  # the kernels of an older version, run by the side-by-side gate, predate these names
@@ -31,6 +33,17 @@ class CaseKind(str, Enum):
     def of(cls, kernel: str) -> CaseKind:
         """The kind of a case from its kernel name."""
         return cls.CONVERSION if kernel == CONVERT else cls.PROBE if kernel == PROBE else cls.KERNEL
+
+
+def is_plain(layout: str) -> bool:
+    """Whether a layout spec has no tiling, padding or offset (a conversion's "A->B" is not plain);
+    rankings prefer plain layouts on a tie."""
+    from kernels.notation import parse_layout
+
+    try:
+        return parse_layout(layout).is_plain
+    except StridewiseError:
+        return False
 
 
 def of_kind(frame: Any, *kinds: CaseKind) -> Any:

@@ -3,7 +3,7 @@ between each kernel's best layouts (what switching layouts between kernels would
 
 from __future__ import annotations
 
-from harness.cases import ARROW, CONVERT, CaseKey, Group
+from harness.cases import ARROW, CONVERT, CaseKey, Group, is_plain
 from harness.store import RunStore
 from harness.suite import Suite
 from kernels.errors import StridewiseError
@@ -14,7 +14,7 @@ def auto_conversions(store: RunStore, suite: Suite, threads: int) -> list[Group]
     so far: the first ``conversions.auto`` layouts of tier 1 in median order, plus tier 1's
     simplest layout (the one a recommendation prefers on a tie); every ordered pair of picks of
     different kernels that is not measured yet."""
-    from harness.rank import RankOptions, _is_plain, load_runs, rank_runs
+    from harness.rank import RankOptions, load_runs, rank_runs
 
     try:
         table = rank_runs(load_runs([str(store.path)]), RankOptions()).table
@@ -25,9 +25,9 @@ def auto_conversions(store: RunStore, suite: Suite, threads: int) -> list[Group]
     for (grid, dtype), grp in table[table["threads"] == threads].groupby(["grid", "dtype"], sort=False):
         picks: dict[str, set[str]] = {}
         for kernel, kg in grp.groupby("kernel", sort=False):
-            top = kg[kg["tier"] == kg["tier"].min()].sort_values("median_ns")
+            top = kg[kg["tier"] == kg["tier"].min()].sort_values("reported_median_ns")
             chosen = list(top["layout"][: suite.conversions_auto])
-            plain = [l for l in top["layout"] if _is_plain(l)]
+            plain = [l for l in top["layout"] if is_plain(l)]
             if plain:
                 chosen.append(plain[0])
             picks[kernel] = set(chosen)

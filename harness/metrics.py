@@ -1,8 +1,8 @@
 """The figures of a case, computed in one place: median, IQR, GB/s, % of roof, GFLOP/s, ratios.
 
-Column names mean one thing everywhere: ``median_ns`` in ``cases.csv`` is over all measured
-rounds of the case; in a ranking the same figure over its reporting rounds is ``median_ns``
-of the ranking table (the README says which file holds which).
+Column names mean one thing everywhere: ``median_ns`` (``cases.csv``) is over all measured
+rounds of a case; ``reported_median_ns`` (a ranking) is over the reporting rounds of a layout's
+chosen schedule, the rounds every ranked figure comes from.
 """
 
 from __future__ import annotations
@@ -22,6 +22,13 @@ PROBE_PREFIX = "probe:"
 SERIAL_PREFIX = "serial:"
 
 
+def median_and_iqr(ns: Any) -> tuple[float, float]:
+    """Median and interquartile range (75th minus 25th percentile) of some samples."""
+    arr = np.asarray(ns, dtype=float)
+    q75, q25 = np.percentile(arr, [75, 25])
+    return float(np.median(arr)), float(q75 - q25)
+
+
 def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, harness_overhead_ns: float) -> dict[str, Any]:
     """Median, IQR, bandwidth, percent of roof and GFLOP/s of one case from all its measured samples."""
     out = dict(record)
@@ -29,11 +36,9 @@ def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, har
     out["harness_overhead_ns"] = harness_overhead_ns
     if not ns:
         return out
-    arr = np.asarray(ns, dtype=float)
-    median = float(np.median(arr))
-    q75, q25 = np.percentile(arr, [75, 25])
+    median, iqr = median_and_iqr(ns)
     out["median_ns"] = median
-    out["iqr_ns"] = float(q75 - q25)
+    out["iqr_ns"] = iqr
     out["gbps"] = record["traffic_bytes"] / median if median else None  # bytes/ns = GB/s
     out["gflops"] = record["flops"] / median if median else None
     if roof is not None:
@@ -85,7 +90,7 @@ def roof_share(rounds: Rounds, layout: str, traffic: float, probe: tuple[str, fl
 
 def _model_share(row: Any) -> Interval:
     """Percent of roof from the recorded roof alone (no probe samples to pair with): no interval."""
-    share = 100.0 * (row.traffic_bytes / row.median_ns) / row.roof_gbps if row.roof_gbps else np.nan
+    share = 100.0 * (row.traffic_bytes / row.reported_median_ns) / row.roof_gbps if row.roof_gbps else np.nan
     return Interval(share, np.nan, np.nan)
 
 
@@ -93,8 +98,8 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
                    key: str, confidence: float) -> dict[str, Any]:
     """Columns of a ranked group (rows in rank order): every figure with its interval."""
     out: dict[str, Any] = {
-        "gbps": (frame["traffic_bytes"] / frame["median_ns"]).to_numpy(),
-        "gflops": (frame["flops"] / frame["median_ns"]).to_numpy(),
+        "gbps": (frame["traffic_bytes"] / frame["reported_median_ns"]).to_numpy(),
+        "gflops": (frame["flops"] / frame["reported_median_ns"]).to_numpy(),
     }
     layouts = list(frame["layout"])
     leader = layouts[0]
@@ -102,10 +107,10 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
     for row in frame.itertuples():
         layout = row.layout
         if rounds is None or layout not in rounds.labels:
-            medians.append(Interval(row.median_ns, np.nan, np.nan))
-            vs_best.append(Interval(row.median_ns / frame["median_ns"].iloc[0], np.nan, np.nan))
-            ref = frame.loc[frame["layout"] == reference, "median_ns"] if reference else pd.Series(dtype=float)
-            vs_ref.append(Interval(float(ref.iloc[0]) / row.median_ns, np.nan, np.nan) if len(ref) else NAN)
+            medians.append(Interval(row.reported_median_ns, np.nan, np.nan))
+            vs_best.append(Interval(row.reported_median_ns / frame["reported_median_ns"].iloc[0], np.nan, np.nan))
+            ref = frame.loc[frame["layout"] == reference, "reported_median_ns"] if reference else pd.Series(dtype=float)
+            vs_ref.append(Interval(float(ref.iloc[0]) / row.reported_median_ns, np.nan, np.nan) if len(ref) else NAN)
             roof.append(_model_share(row))
             roof_gbps.append(row.roof_gbps)
             continue
@@ -124,7 +129,7 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
             gbps, share_interval = roof_share(rounds, layout, row.traffic_bytes, probe, key, confidence)
             roof.append(share_interval)
             roof_gbps.append(gbps)
-    out.update(_columns("median_ns", medians))
+    out.update(_columns("reported_median_ns", medians))
     out.update(_columns("time_vs_best", vs_best))
     out.update(_columns("speedup_vs_reference", vs_ref))
     out.update(_columns("pct_roof", roof))

@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from harness.intervals import Rounds, combine
-from harness.cases import ARROW, CaseKind, of_kind
+from harness.cases import ARROW, CaseKind, is_plain, of_kind
 
 
 def _weights(runs: Any, options: Any, machine: str) -> dict[str, float]:
@@ -42,7 +42,6 @@ def _conversion_rounds(runs: Any, machine: str, grid: str, dtype: str, threads: 
 
 
 def kernel_mix(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds], runs: Any, options: Any) -> list[dict[str, Any]]:
-    from harness.rank import _is_plain
 
     out = []
     for (machine, grid, dtype, threads), grp in table.groupby(["machine", "grid", "dtype", "threads"], sort=False):
@@ -55,7 +54,7 @@ def kernel_mix(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds], runs:
             entry["note"] = f"not in the runs: {', '.join(missing)}"
             out.append(entry)
             continue
-        med = {k: g.set_index("layout")["median_ns"] for k, g in grp.groupby("kernel") if k in weights}
+        med = {k: g.set_index("layout")["reported_median_ns"] for k, g in grp.groupby("kernel") if k in weights}
         group_rounds = {k: rounds.get((machine, k, grid, dtype, threads)) for k in weights}
         common = set.intersection(*(set(s.index) for s in med.values()))
         totals = {layout: sum(w * med[k][layout] for k, w in weights.items()) for layout in common}
@@ -65,7 +64,7 @@ def kernel_mix(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds], runs:
             continue
         best_total = min(totals.values())
         near = [l for l, t in totals.items() if t <= best_total * (1 + options.floor)]
-        single = min(near, key=lambda l: (not _is_plain(l), totals[l]))
+        single = min(near, key=lambda l: (not is_plain(l), totals[l]))
         entry["single_layout"] = single
         entry["single_ns"] = totals[single]
         entry["near_single"] = sorted(l for l in near if l != single)
@@ -73,7 +72,7 @@ def kernel_mix(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds], runs:
         for k in weights:
             g = grp[grp["kernel"] == k]
             top = g[g["tier"] == g["tier"].min()] if g["tier"].notna().any() else g.head(1)
-            per_kernel[k] = min(top["layout"], key=lambda l: (not _is_plain(l), float(top.set_index("layout").loc[l, "median_ns"])))
+            per_kernel[k] = min(top["layout"], key=lambda l: (not is_plain(l), float(top.set_index("layout").loc[l, "reported_median_ns"])))
         entry["per_kernel"] = per_kernel
         compute = sum(w * med[k][per_kernel[k]] for k, w in weights.items())
         sequence = [per_kernel[k] for k in weights]

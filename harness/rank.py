@@ -30,11 +30,10 @@ import pandas as pd
 
 from harness import metrics
 from harness.intervals import CONFIDENCE, Rounds
-from harness.cases import CaseKind, of_kind, probe_schedule
+from harness.cases import CaseKind, is_plain, of_kind, probe_schedule
 from harness.stats import holm, slower_beyond, split_rounds
 from harness.store import RunMetadata, RunStore, RunStoreError
 from kernels.errors import StridewiseError
-from kernels.notation import parse_layout
 
 GROUP_KEYS = ["machine", "kernel", "grid", "dtype", "threads"]
 #: Round ids of the n-th run directory are offset by n times this (an even number, so the
@@ -86,13 +85,6 @@ def load_runs(paths: list[str]) -> Runs:
     return Runs(pd.concat(cases_list, ignore_index=True), pd.concat(samples_list, ignore_index=True), meta)
 
 
-def _is_plain(layout: str) -> bool:
-    try:
-        return parse_layout(layout).is_plain
-    except StridewiseError:
-        return False
-
-
 def tiers(per_round: dict[str, pd.Series], order: list[str], alpha: float, floor: float) -> dict[str, int]:
     """Tier number (1 = fastest) of each layout; see the module docstring for the algorithm."""
     remaining = list(order)
@@ -129,7 +121,7 @@ def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions,
         rows = []
         for layout, lc in par.groupby("layout"):
             best = lc.sort_values("median_ns").iloc[0]
-            rows.append({"layout": layout, "schedule": best["schedule"], "median_ns": best["median_ns"], "iqr_rel": np.nan,
+            rows.append({"layout": layout, "schedule": best["schedule"], "reported_median_ns": best["median_ns"], "iqr_rel": np.nan,
                          "tier": np.nan, "rounds": 0, "case": best})
         return _finish(pd.DataFrame(rows), None, None, options), None
     choose, report = map(set, split_rounds(list(smp["round"].unique())))
@@ -153,11 +145,11 @@ def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions,
         rep = s[s.index.isin(report)]
         per_round[layout] = rep
         choose_median[layout] = best_med
-        q75, q25 = np.percentile(rep.to_numpy(float), [75, 25])
-        rows.append({"layout": layout, "schedule": best["schedule"], "median_ns": float(rep.median()),
-                     "iqr_rel": float((q75 - q25) / rep.median()), "rounds": int(rep.size), "case": best})
+        median, iqr = metrics.median_and_iqr(rep.to_numpy(float))
+        rows.append({"layout": layout, "schedule": best["schedule"], "reported_median_ns": median,
+                     "iqr_rel": iqr / median, "rounds": int(rep.size), "case": best})
     frame = pd.DataFrame(rows)
-    order = sorted(choose_median, key=lambda k: (choose_median[k], not _is_plain(k)))
+    order = sorted(choose_median, key=lambda k: (choose_median[k], not is_plain(k)))
     tier_of = tiers(per_round, order, options.alpha, options.floor)
     frame["tier"] = frame["layout"].map(tier_of)
     frame["split"] = "halves" if choose != report else "all rounds (too few to split)"
@@ -184,8 +176,8 @@ def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | N
     frame["roof_gbps"] = [c.get("roof_gbps", np.nan) for c in case]
     frame["overhead_bound"] = [c.get("overhead_bound") is True for c in case]
     frame["vectorised"] = [c.get("vectorised") for c in case]
-    frame["plain"] = frame["layout"].map(_is_plain)
-    frame = frame.sort_values(["tier", "median_ns"], na_position="last").reset_index(drop=True)
+    frame["plain"] = frame["layout"].map(is_plain)
+    frame = frame.sort_values(["tier", "reported_median_ns"], na_position="last").reset_index(drop=True)
     frame["rank"] = np.arange(1, len(frame) + 1)
     key = rounds.name if rounds is not None else ""
     frame = frame.assign(**metrics.ranked_figures(frame, rounds, probes, options.reference, key, options.confidence))

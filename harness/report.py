@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import json
 import math
-from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -13,6 +12,7 @@ from tabulate import tabulate
 from harness.intervals import Interval
 from harness.metrics import OVERHEAD_MULTIPLE
 from harness.rank import Ranking
+from harness.report_parts import failed_section, fmt_interval, fmt_number, mix_section, repetition_section, scaling_section
 from harness.store import RunMetadata, recorded_false
 
 FAMILY_WORDS = {"columns": "column solves", "stencils": "stencils"}
@@ -27,21 +27,6 @@ FLAG_NOTES = {
                       "fork/join time.",
     "scalar": "`scalar`: the compiled loop has no packed vector instructions.",
 }
-
-
-def _num(value: Any, spec: str) -> str:
-    if value is None or (isinstance(value, float) and (np.isnan(value) or np.isinf(value))):
-        return ""
-    return format(value, spec)
-
-
-def _iv(row: Any, name: str, spec: str, scale: float = 1.0) -> str:
-    """A figure with its interval from a row's ``name``, ``name_lo``, ``name_hi`` columns."""
-    value = row.get(name) if hasattr(row, "get") else None
-    lo, hi = row.get(f"{name}_lo", np.nan), row.get(f"{name}_hi", np.nan)
-    if value is None or not np.isfinite(value):
-        return ""
-    return Interval(value * scale, lo * scale, hi * scale).text(spec)
 
 
 def _headline(kernel: str, family: str, threads: int, grp: pd.DataFrame, confidence: float) -> str:
@@ -75,7 +60,7 @@ def _inversions(grp: pd.DataFrame) -> str | None:
     rows = list(grp.itertuples())
     for i, a in enumerate(rows):
         for b in rows[i + 1:]:
-            if pd.notna(a.tier) and pd.notna(b.tier) and a.tier < b.tier and a.median_ns > b.median_ns:
+            if pd.notna(a.tier) and pd.notna(b.tier) and a.tier < b.tier and a.reported_median_ns > b.reported_median_ns:
                 pairs.append((a, b))
     if not pairs:
         return None
@@ -148,9 +133,9 @@ def _group_table(grp: pd.DataFrame) -> tuple[str, list[str]]:
             flags.append(">roof")
         used += flags
         rows.append([
-            int(e["rank"]), _num(e["tier"], ".0f"), e["layout"], e["schedule"], _iv(e, "median_ns", ".4g", 1e-6),
-            _num(e["iqr_rel"], ".1%"), _num(e["gbps"], ".1f"), _iv(e, "pct_roof", ".0f"), _num(e["gflops"], ".2f"),
-            _iv(e, "time_vs_best", ".2f"), _iv(e, "speedup_vs_reference", ".2f"), " ".join(flags),
+            int(e["rank"]), fmt_number(e["tier"], ".0f"), e["layout"], e["schedule"], fmt_interval(e, "reported_median_ns", ".4g", 1e-6),
+            fmt_number(e["iqr_rel"], ".1%"), fmt_number(e["gbps"], ".1f"), fmt_interval(e, "pct_roof", ".0f"), fmt_number(e["gflops"], ".2f"),
+            fmt_interval(e, "time_vs_best", ".2f"), fmt_interval(e, "speedup_vs_reference", ".2f"), " ".join(flags),
         ])
     return tabulate(rows, headers=TABLE_COLUMNS, tablefmt="github", disable_numparse=True), used
 
@@ -198,9 +183,9 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     notes = [FLAG_NOTES[f] for f in FLAG_NOTES if f in flags_used]
     if notes:
         out += ["Flags: " + " ".join(notes), ""]
-    out += _repetition_section(r)
-    out += _scaling_section(r)
-    out += _mix_section(r)
+    out += repetition_section(r)
+    out += scaling_section(r)
+    out += mix_section(r)
     if not r.machine_diffs.empty:
         out += ["## Where the winner differs between machines", ""]
         out.append(tabulate(r.machine_diffs.values.tolist(), headers=list(map(str, r.machine_diffs.columns)), tablefmt="github"))
@@ -210,85 +195,9 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     return "\n".join(out)
 
 
-def _repetition_section(r: Ranking) -> list[str]:
-    rep = r.repetitions
-    if rep is None or rep.empty:
-        return []
-    out = ["## Run-to-run agreement", "",
-           "Groups measured in several runs or repetitions (`sweep --repeat N`, or several run directories of one "
-           "machine). Intervals above pool them, resampling runs and then rounds within runs, so they include the "
-           "between-run spread; the tiers' paired tests pool the rounds. Spread: the largest ratio between one "
-           "layout's medians in two runs. Kendall's tau: agreement of the layout orders of two runs (1 = same order).",
-           ""]
-    rows = [[e["kernel"], e["grid"], e["dtype"], int(e["threads"]), int(e["blocks"]),
-             f"{e['spread_max']:.2f}x ({e['spread_layout']})", f"{e['tau_min']:.2f}", f"{e['tau_median']:.2f}",
-             "yes" if e["same_leader"] else f"no: {e['leaders']}"] for _, e in rep.iterrows()]
-    out.append(tabulate(rows, headers=["kernel", "grid", "dtype", "threads", "runs", "largest spread", "tau (min)",
-                                       "tau (median)", "same leader in every run"], tablefmt="github", disable_numparse=True))
-    held = int(rep["same_leader"].sum())
-    out += ["", f"The leader held in every run for {held} of {len(rep)} group(s)."]
-    return out + [""]
-
-
-def _scaling_section(r: Ranking) -> list[str]:
-    if r.scaling.empty or r.scaling["threads"].nunique() < 2:
-        return []
-    out = ["## Thread scaling", ""]
-    out += [f"- {f}" for f in r.flips]
-    out += ["", "Speedup is over the same threaded build at 1 thread (each thread count's best schedule, shown as "
-            "1-thread -> t-thread); efficiency is speedup over threads; `x serial build` compares with the best "
-            "single-threaded (parallel=False) build. `inconclusive`: the interval reaches both below 1 and above the "
-            "thread count; `superlinear`: the whole interval is above the thread count.", ""]
-    rows = [[s["kernel"], s["layout"], int(s["threads"]), f"{s['schedule_1thread']} -> {s['schedule']}",
-             _num(s["median_ns"] / 1e6, ".4g"), _iv(s, "speedup", ".2f"), _iv(s, "efficiency", ".0%"),
-             _iv(s, "vs_serial_build", ".2f"), s["flags"]]
-            for _, s in r.scaling[r.scaling["threads"] > 1].iterrows()]
-    out.append(tabulate(rows, headers=["kernel", "layout", "threads", "schedules", "median ms", "speedup", "efficiency",
-                                       "x serial build", "flags"], tablefmt="github", disable_numparse=True))
-    return out + [""]
-
-
-def _mix_section(r: Ranking) -> list[str]:
-    if not r.mix:
-        return []
-    conf = f"{r.options.confidence:.0%}"
-    out = ["## Kernel mix", ""]
-    for m in r.mix:
-        weights = ", ".join(f"{k} x{w:g}" for k, w in m["weights"].items())
-        out.append(f"### {m['grid']}, {m['dtype']}, {m['threads']} thread(s) (weights: {weights})")
-        out.append("")
-        if "note" in m:
-            out += [f"Cannot rank the mix: {m['note']}.", ""]
-            continue
-        single = Interval(m["single_ns"] / 1e6, m.get("single_lo", np.nan) / 1e6, m.get("single_hi", np.nan) / 1e6)
-        near = m.get("near_single") or []
-        within = f" (within {r.options.floor:.0%} of it: {', '.join(f'`{l}`' for l in near)})" if near else ""
-        out.append(f"- Best single layout: `{m['single_layout']}`, {single.text('.3f')} ms per step{within}.")
-        per = ", ".join(f"{k}: `{v}`" for k, v in m["per_kernel"].items())
-        out.append(f"- Best layout per kernel: {per}; {m['switch_compute_ns'] / 1e6:.3f} ms of kernels per step.")
-        if "switch_note" in m:
-            out.append(f"- Switching cannot be priced: {m['switch_note']}.")
-        else:
-            ratio = Interval(m.get("switch_ratio", np.nan), m.get("switch_ratio_lo", np.nan), m.get("switch_ratio_hi", np.nan))
-            verdict = {True: "it pays off", False: "it does not pay off",
-                       None: f"cannot tell whether it pays off at {conf}"}[m.get("switch_pays")]
-            ratio_text = f"{ratio.text('.2f')} times the single layout's step" if np.isfinite(ratio.value) else "no interval"
-            out.append(f"- With {m['convert_ns'] / 1e6:.3f} ms of measured conversions, switching costs "
-                       f"{m['switch_ns'] / 1e6:.3f} ms per step, {ratio_text}: {verdict}.")
-        out.append("")
-    return out
-
-
-def failed_section(failed: pd.DataFrame) -> list[str]:
-    """Markdown lines listing cases that failed validation or raised (with a machine column when known)."""
-    columns = [c for c in ("machine", "kernel", "schedule", "build", "layout", "dtype", "threads", "status", "message") if c in failed]
-    rows = [[f[c] for c in columns] for _, f in failed.iterrows()]
-    return ["## Failed cases", "", tabulate(rows, headers=columns, tablefmt="github"), ""]
-
-
 EXPORT_COLUMNS = [
     "machine", "kernel", "grid", "dtype", "threads", "rank", "tier", "layout", "schedule",
-    "median_ns", "median_ns_lo", "median_ns_hi", "iqr_rel", "gbps", "roof_gbps",
+    "reported_median_ns", "reported_median_ns_lo", "reported_median_ns_hi", "iqr_rel", "gbps", "roof_gbps",
     "pct_roof", "pct_roof_lo", "pct_roof_hi", "above_roof", "gflops",
     "time_vs_best", "time_vs_best_lo", "time_vs_best_hi",
     "speedup_vs_reference", "speedup_vs_reference_lo", "speedup_vs_reference_hi",

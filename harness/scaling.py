@@ -42,7 +42,7 @@ def scaling_and_flips(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds]
             if r1 is not None and rt is not None and r["layout"] in r1.labels and r["layout"] in rt.labels:
                 speed = _speedup(r1, r["layout"], rt, r["layout"], f"speedup|{tag}", options.confidence)
             elif r["layout"] in one.index:
-                speed = Interval(float(one.loc[r["layout"], "median_ns"]) / r["median_ns"], np.nan, np.nan)
+                speed = Interval(float(one.loc[r["layout"], "reported_median_ns"]) / r["reported_median_ns"], np.nan, np.nan)
             serial_label = SERIAL_PREFIX + r["layout"]
             if r1 is not None and rt is not None and serial_label in r1.labels and r["layout"] in rt.labels:
                 serial = _speedup(r1, serial_label, rt, r["layout"], f"serial|{tag}", options.confidence)
@@ -54,7 +54,7 @@ def scaling_and_flips(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds]
             rows.append({"machine": machine, "kernel": kernel, "grid": grid, "dtype": dtype, "layout": r["layout"],
                          "threads": threads, "schedule": r["schedule"],
                          "schedule_1thread": one.loc[r["layout"], "schedule"] if r["layout"] in one.index else None,
-                         "median_ns": r["median_ns"],
+                         "reported_median_ns": r["reported_median_ns"],
                          "speedup": speed.value, "speedup_lo": speed.lo, "speedup_hi": speed.hi,
                          "efficiency": speed.value / threads, "efficiency_lo": speed.lo / threads,
                          "efficiency_hi": speed.hi / threads,

@@ -2,19 +2,12 @@
 
 from __future__ import annotations
 
-from typing import Any
-
-import numpy as np
 import pandas as pd
 from tabulate import tabulate
 
 from harness.cases import CaseKind, of_kind
+from harness.report_parts import failed_section, fmt_number
 from harness.store import RunMetadata, recorded_false
-
-def _fmt(value: Any, spec: str) -> str:
-    if value is None or (isinstance(value, float) and np.isnan(value)):
-        return ""
-    return format(value, spec)
 
 
 def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
@@ -52,9 +45,9 @@ def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
                 flags.append("scalar")
             rows.append(
                 [
-                    r["layout"], r["schedule"], r["build"], _fmt(r["median_ns"] / 1e6, ".3f"),
-                    _fmt(r["iqr_ns"] / r["median_ns"], ".1%"), _fmt(r.get("gbps"), ".1f"), _fmt(r.get("pct_roof"), ".0f"),
-                    _fmt(r.get("gflops"), ".2f"), " ".join(flags),
+                    r["layout"], r["schedule"], r["build"], fmt_number(r["median_ns"] / 1e6, ".3f"),
+                    fmt_number(r["iqr_ns"] / r["median_ns"], ".1%"), fmt_number(r.get("gbps"), ".1f"), fmt_number(r.get("pct_roof"), ".0f"),
+                    fmt_number(r.get("gflops"), ".2f"), " ".join(flags),
                 ]
             )
         headers = ["layout", "schedule", "build", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "flags"]
@@ -62,7 +55,5 @@ def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
         lines.append("")
     bad = cases[cases["status"] != "ok"] if len(cases) else cases
     if len(bad):
-        from harness.report import failed_section
-
         lines += failed_section(bad)
     return "\n".join(lines)

@@ -66,7 +66,7 @@ class Token:
 class Layout:
     """A physical order of the logical axes, with optional tiling, padding and base offset.
 
-    Frozen and hashable; ``Layout.parse(layout.spec) == layout`` always holds.
+    Frozen and hashable; ``parse_layout(layout.spec) == layout`` always holds (``kernels.notation``).
     """
 
     tokens: tuple[Token, ...]
@@ -78,13 +78,6 @@ class Layout:
         object.__setattr__(self, "_tiles", {t.axis: t.tile for t in self.tokens if t.part == WITHIN})
 
     # -- text -----------------------------------------------------------------------------
-    @classmethod
-    def parse(cls, spec: str) -> Layout:
-        """Parse spec text strictly (see ``kernels.notation``); raise LayoutError on any fault."""
-        from kernels.notation import parse_layout
-
-        return parse_layout(spec)
-
     @property
     def spec(self) -> str:
         """Canonical spec text."""

@@ -25,12 +25,6 @@ SPACING = 1.0  # grid spacing h (grid units)
 
 
 @inline
-def offsets(dy, dx, wdy, wdx, j, i):  # type: ignore[no-untyped-def]
-    # East, west, north, south in q's walk, then the same in the wind's.
-    return dx[2, i], dx[0, i], dy[2, j], dy[0, j], wdx[2, i], wdx[0, i], wdy[2, j], wdy[0, j]
-
-
-@inline
 def point(q, out, extra, p, pw, offs, consts):  # type: ignore[no-untyped-def]
     qe, qw, qn, qs, we, ww, wn, ws = offs
     u, v = extra
@@ -39,6 +33,12 @@ def point(q, out, extra, p, pw, offs, consts):  # type: ignore[no-untyped-def]
     fx = (uc + u[k(pw + we)]) * (qc + q[k(p + qe)]) - (u[k(pw + ww)] + uc) * (q[k(p + qw)] + qc)
     fy = (vc + v[k(pw + wn)]) * (qc + q[k(p + qn)]) - (v[k(pw + ws)] + vc) * (q[k(p + qs)] + qc)
     out[k(p)] = consts[0] * (fx + fy)
+
+
+@inline
+def offsets(dy, dx, wdy, wdx, j, i):  # type: ignore[no-untyped-def]
+    # East, west, north, south in q's walk, then the same in the wind's.
+    return dx[2, i], dx[0, i], dy[2, j], dy[0, j], wdx[2, i], wdx[0, i], wdy[2, j], wdy[0, j]
 
 
 class Advection(Stencil):
