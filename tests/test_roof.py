@@ -53,3 +53,23 @@ def test_footprints_and_sizes() -> None:
     assert parse_bytes("512MiB") == 512 << 20 and parse_bytes("2GiB") == 2 << 30 and parse_bytes("1000") == 1000
     with pytest.raises(StridewiseError, match="'12 parsecs'"):
         parse_bytes("12 parsecs")
+
+
+def test_waiting_on_a_dead_or_silent_child_ends_with_a_clear_error() -> None:
+    """The roof command's wait: a crashed child and a child that never answers both end it."""
+    import multiprocessing
+    import sys
+    import time
+
+    from harness.processes import ChildError, receive
+
+    ctx = multiprocessing.get_context("spawn")
+    dead = ctx.Process(target=sys.exit, args=(3,), daemon=True)
+    dead.start()
+    with pytest.raises(ChildError, match="exited with status 3 without answering"):
+        receive(ctx.Queue(), dead, 60.0, "roof at 1 thread(s)")
+    silent = ctx.Process(target=time.sleep, args=(60,), daemon=True)
+    silent.start()
+    with pytest.raises(ChildError, match="no answer from the child process in 1 s; it was stopped"):
+        receive(ctx.Queue(), silent, 1.0, "roof at 1 thread(s)")
+    assert not silent.is_alive()
