@@ -25,7 +25,8 @@ from typing import Any
 from harness import machine
 from harness.metrics import case_statistics
 from harness.cases import Group
-from harness.plan import plan
+from harness.plan import group_bytes, plan
+from harness.shared_pages import arena_file, arena_size
 from harness.store import RunStore
 from harness.suite import Suite
 from harness.worker import worker_environment
@@ -178,10 +179,18 @@ def run_versus(base: str, head: str | None, suite: Suite, suite_text: str, out: 
 
 def _run_pair(group: Group, sides: list[_Side], suite: Suite, rounds: int, store: RunStore,
               metadata: dict[str, Any], threads: int) -> None:
+    with arena_file(arena_size(group_bytes(group), len(group.cases)), "versus") as arena:
+        _run_pair_in(group, sides, suite, rounds, store, metadata, threads, arena)
+
+
+def _run_pair_in(group: Group, sides: list[_Side], suite: Suite, rounds: int, store: RunStore,
+                 metadata: dict[str, Any], threads: int, arena: str) -> None:
     records: dict[str, list[dict[str, Any]]] = {}
+    shared = []
     for side in sides:  # one at a time: compiling one version never overlaps timing the other
-        answer = side.ask(("prepare", _group_data(group)), "prepared")
+        answer = side.ask(("prepare", _group_data(group), arena), "prepared")
         records[side.version.label] = answer["records"]
+        shared.append(bool(answer.get("shared_pages")))
     ids = [c.id for c in group.cases]
     rng = random.Random(f"{suite.seed}:versus:{group.label}")
     samples: list[dict[str, Any]] = []
@@ -207,5 +216,5 @@ def _run_pair(group: Group, sides: list[_Side], suite: Suite, rounds: int, store
             row["version"] = label
             cases.append(row)
     store.append(cases, samples)
-    metadata["groups"][group.label] = {"rounds": rounds, "warmup": suite.timing.warmup}
+    metadata["groups"][group.label] = {"rounds": rounds, "warmup": suite.timing.warmup, "shared_pages": all(shared)}
     store.write_metadata(metadata)

@@ -25,8 +25,17 @@ DRIFT_NOTE = (
     "Mode: side by side. Both versions ran in this one run on this machine, alternating one round of a group "
     "at a time (base, head, then head, base, ...), and each comparison is paired by round. It cancels machine "
     "drift slower than a round (load from other jobs, frequency and thermal changes, a noisy neighbour that comes "
-    "and goes); it cannot see effects that differ between the two worker processes themselves (page placement, "
-    "buffer alignment), which the threshold must cover."
+    "and goes)."
+)
+SHARED_NOTE = (
+    "Both versions' state buffers were placed in one shared set of pages, buffer by buffer in allocation order, "
+    "so where a buffer lands in memory (which can change a case's time by tens of percent) is the same for both "
+    "while their allocations match."
+)
+PRIVATE_NOTE = (
+    "The buffers of at least one version could not be placed in shared pages (its kernels predate that), so "
+    "page placement differs between the two processes; such differences pass for differences of the code and "
+    "the threshold must cover them."
 )
 
 
@@ -64,6 +73,12 @@ def paired_gate(samples: pd.DataFrame, cases: pd.DataFrame, threshold: float, co
     return pd.DataFrame(rows)
 
 
+def shared_pages(metadata: RunMetadata) -> bool:
+    """Whether every group of a side-by-side run placed both versions' buffers in shared pages."""
+    groups = metadata.raw.get("groups") or {}
+    return bool(groups) and all(g.get("shared_pages") for g in groups.values())
+
+
 def render_versus(table: pd.DataFrame, metadata: RunMetadata, threshold: float, confidence: float) -> str:
     versions = metadata.versions
 
@@ -78,7 +93,7 @@ def render_versus(table: pd.DataFrame, metadata: RunMetadata, threshold: float, 
         f"# Side-by-side gate: {verdict}", "",
         f"Base {describe('base')}; head {describe('head')}; machine `{metadata.machine_id or '?'}`, "
         f"{metadata.raw.get('rounds', '?')} paired rounds per group.", "",
-        DRIFT_NOTE, "",
+        DRIFT_NOTE + " " + (SHARED_NOTE if shared_pages(metadata) else PRIVATE_NOTE), "",
         f"A case is `slower` when head takes more than {1 + threshold:.2f}x base's time in a one-sided paired Wilcoxon "
         f"signed-rank test, Holm-corrected over the cases at level {1 - confidence:.2g} (`faster` likewise); "
         f"head/base is the ratio of medians with a {confidence:.0%} bootstrap interval over paired rounds.", "",

@@ -49,6 +49,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
     from harness.sampling import Timing
     from harness.timing import _measure
     from harness.prepare import prepare_group
+    from harness.shared_pages import Arena, placed_in
     from harness.worker import WorkerPlan, context, start_worker
     from kernels.jit import SOURCE_HASH
 
@@ -64,26 +65,33 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
 
         flush_buf = np.zeros(plan["flush_bytes"] // 8, dtype=np.int64)
         flush = lambda: evict_caches(flush_buf)  # noqa: E731
-    prepared = group = None
+    prepared = group = arena = None
     while True:
         message = conn.recv()
         if message[0] == "stop":
             return
         if message[0] == "prepare":
-            g = message[1]
+            g, arena_path = message[1], message[2]
             group = Group(g["kernel"], g["grid"], g["dtype"], g["threads"], tuple(CaseKey(**c) for c in g["cases"]))
             prepared = None  # release the previous group's buffers first
-            prepared = prepare_group(group, context(wplan, {}), probes=False)
-            conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles}))
+            if arena is not None:
+                arena.close()
+            arena = Arena(arena_path) if arena_path else None
+            with placed_in(arena) as shared:
+                prepared = prepare_group(group, context(wplan, {}), probes=False)
+            conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles,
+                                    "shared_pages": shared}))
         elif message[0] == "round":
             _, rnd, order = message
-            # Fresh buffers for every round: where a buffer lands (page alignment, huge pages, the
-            # offset between input and output streams) can change a case's time by tens of percent
-            # and stays fixed for a buffer's life. Drawn anew each round it becomes noise that the
-            # pairing sees, not a bias of one version's process. The code is the same, and the new
-            # problems are validated again before they are timed.
+            # Every round rebuilds and revalidates the group's problems in the shared arena, from
+            # its first page: the other version has just written its own there, so this version's
+            # inputs are restored and its buffers sit on the same pages as the other's (see
+            # harness.shared_pages). Without an arena the buffers are fresh private ones each round.
             prepared = None
-            prepared = prepare_group(group, context(wplan, {}), probes=False)
+            if arena is not None:
+                arena.reset()
+            with placed_in(arena):
+                prepared = prepare_group(group, context(wplan, {}), probes=False)
             rows = []
             for position, case_id in enumerate(c for c in order if c in prepared.calls):
                 if case_id in prepared.prepare:

@@ -76,8 +76,30 @@ def test_a_slowed_kernel_fails_and_the_unchanged_one_passes(tmp_path: Path) -> N
     assert firsts[:4] == ["base", "head", "base", "head"]
     meta = json.loads((run / "metadata.json").read_text())
     assert meta["mode"] == "side-by-side" and meta["versions"]["base"]["kernels_source_hash"]
+    assert all(g["shared_pages"] for g in meta["groups"].values())
     report = (run / "gate.md").read_text()
     assert report.startswith("# Side-by-side gate: FAIL") and "Mode: side by side" in report
+    assert "one shared set of pages" in report
+
+
+def test_two_arenas_on_one_file_hand_out_the_same_pages(tmp_path: Path) -> None:
+    """What the side-by-side workers rely on: equal allocation sequences land on the same memory."""
+    from harness.shared_pages import PAGE, Arena, arena_file
+
+    with arena_file(10 * PAGE, "test") as path:
+        first, second = Arena(path), Arena(path)
+        a1, a2 = first.aligned_empty(100), first.aligned_empty(PAGE + 1, base_offset=64)
+        b1, b2 = second.aligned_empty(100), second.aligned_empty(PAGE + 1, base_offset=64)
+        a2[:] = 7
+        assert (b2 == 7).all() and not b1.any()  # the same bytes, seen through the other mapping
+        assert a2.ctypes.data % PAGE == 64 and first.used == second.used == PAGE + 64 + PAGE + 1
+        with pytest.raises(MemoryError, match="arena"):
+            first.aligned_empty(10 * PAGE)
+        first.reset()
+        assert first.aligned_empty(100).ctypes.data == a1.ctypes.data
+        del a1, a2, b1, b2
+        first.close(), second.close()
+    assert not Path(path).exists()
 
 
 def test_a_git_revision_is_checked_out_for_its_kernels(tmp_path: Path) -> None:
