@@ -53,6 +53,9 @@ class Context:
     kernel_options: dict[str, tuple[tuple[str, int], ...]]
     inspect_vectorisation: bool
     seen_reports: dict[str, dict[str, Any]]  # vector reports already read, by specialisation
+    #: Write every input back before each sample, not only a kernel's that overwrites them: its
+    #: buffers share pages with another process's (the side-by-side gate).
+    restore_inputs: bool = False
 
 
 def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
@@ -66,6 +69,7 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
     extents = Extents.parse(group.grid)
     kernel = get_kernel(group.kernel)
     problems: dict[str, Any] = {}
+    restorers: dict[str, Any] = {}
     for case in group.cases:
         rec = out.add(case, kernel.family, kernel.footprint(case.layout, extents, group.dtype),
                       kernel.traffic_bytes(extents, group.dtype), kernel.flops(extents))
@@ -89,8 +93,10 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
                 rec.update(_vector_fields(impl, args, ctx.seen_reports))
             rec["status"] = "ok"
             out.calls[case.id] = Bound(dispatcher, args)
-            if kernel.overwrites_inputs:
-                out.prepare[case.id] = _restorer(problem)
+            if kernel.overwrites_inputs or ctx.restore_inputs:
+                if case.layout not in restorers:
+                    restorers[case.layout] = _restorer(problem)
+                out.prepare[case.id] = restorers[case.layout]
         except Exception as exc:  # noqa: BLE001 - recorded as the case's error
             rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
 

@@ -66,6 +66,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
         flush_buf = np.zeros(plan["flush_bytes"] // 8, dtype=np.int64)
         flush = lambda: evict_caches(flush_buf)  # noqa: E731
     prepared = group = arena = None
+    shared = False
     while True:
         message = conn.recv()
         if message[0] == "stop":
@@ -78,20 +79,20 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
                 arena.close()
             arena = Arena(arena_path) if arena_path else None
             with placed_in(arena) as shared:
-                prepared = prepare_group(group, context(wplan, {}), probes=False)
+                prepared = prepare_group(group, context(wplan, {}, restore_inputs=shared), probes=False)
             conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles,
                                     "shared_pages": shared}))
         elif message[0] == "round":
             _, rnd, order = message
-            # Every round rebuilds and revalidates the group's problems in the shared arena, from
-            # its first page: the other version has just written its own there, so this version's
-            # inputs are restored and its buffers sit on the same pages as the other's (see
-            # harness.shared_pages). Without an arena the buffers are fresh private ones each round.
-            prepared = None
-            if arena is not None:
-                arena.reset()
-            with placed_in(arena):
+            if not shared:
+                # Private buffers: where a buffer lands (page alignment, huge pages, the offset
+                # between input and output) can change a case's time by tens of percent and stays
+                # fixed for its life, so fresh, revalidated buffers each round turn it into noise
+                # instead of a bias of one version's process.
+                prepared = None
                 prepared = prepare_group(group, context(wplan, {}), probes=False)
+            # With shared pages the problems stay; each input is written back before each sample
+            # (prepared.prepare), since the other version's last round wrote into the same pages.
             rows = []
             for position, case_id in enumerate(c for c in order if c in prepared.calls):
                 if case_id in prepared.prepare:

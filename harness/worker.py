@@ -109,9 +109,10 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
         queue.put(("group", result))
 
 
-def context(plan: WorkerPlan, seen_reports: dict[str, dict[str, Any]]) -> Context:
+def context(plan: WorkerPlan, seen_reports: dict[str, dict[str, Any]], restore_inputs: bool = False) -> Context:
     """What the preparers need from a worker's plan."""
-    return Context(plan.seed, plan.timing.first_touch, dict(plan.kernel_options), plan.inspect_vectorisation, seen_reports)
+    return Context(plan.seed, plan.timing.first_touch, dict(plan.kernel_options), plan.inspect_vectorisation, seen_reports,
+                   restore_inputs)
 
 
 def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, queue: Any) -> dict[str, Any]:
