@@ -1,10 +1,11 @@
 """Side-by-side comparison of two code versions in one run on one machine.
 
 Each version's ``kernels/`` runs in its own spawned worker per thread count (so each imports its
-own code and uses its own compile cache). The parent drives the two workers one round of one
-group at a time, in ABBA order (base then head, head then base, ...), so the two versions see the
-same machine state in adjacent slots and a drift of the machine cancels in the per-round ratio.
-Only one worker computes at any moment; the other waits for its next command.
+own code and uses its own compile cache). Both place their state buffers in one shared set of
+pages (``harness.shared_pages``). The parent asks for one sample at a time: per case, the two
+versions back to back, the first alternating case by case and round by round, so the two samples
+of a pair see the same machine state and a drift of the machine cancels in their ratio. Only one
+worker computes at any moment; the other waits for its next command.
 """
 
 from __future__ import annotations
@@ -151,7 +152,7 @@ def run_versus(base: str, head: str | None, suite: Suite, suite_text: str, out: 
         groups = [g for g in plan(suite, counts) if g.repetition == 0]
         metadata: dict[str, Any] = {
             "mode": "side-by-side", "suite": suite.as_dict(), "suite_hash": suite.digest(), "fingerprint": fingerprint,
-            "status": "running", "rounds": rounds, "order": "ABBA per round: base, head, then head, base, ...",
+            "status": "running", "rounds": rounds, "order": "per case, the two versions back to back; the first alternates case by case and round by round",
             "versions": {v.label: {"spec": v.spec, "commit": v.commit} for v in versions}, "workers": {}, "groups": {},
         }
         store.create(suite_text, metadata)
@@ -197,14 +198,16 @@ def _run_pair_in(group: Group, sides: list[_Side], suite: Suite, rounds: int, st
     by_id = {c.id: c for c in group.cases}
     for k in range(suite.timing.warmup + rounds):
         order = ids[:]
-        rng.shuffle(order)  # the same case order for both versions within a round pair
-        pair = sides if k % 2 == 0 else sides[::-1]
-        for slot, side in enumerate(pair):
-            rows = side.ask(("round", threads * THREAD_ROUNDS + k, order), "samples")
-            phase = "warmup" if k < suite.timing.warmup else "measure"
-            for case_id, rnd, position, ns in rows:
-                samples.append({**by_id[case_id].as_dict(), "round": rnd, "position": position + slot * len(order),
-                                "phase": phase, "ns": ns, "version": side.version.label})
+        rng.shuffle(order)
+        phase = "warmup" if k < suite.timing.warmup else "measure"
+        for position, case_id in enumerate(order):
+            # The two versions' samples of a case are taken back to back, milliseconds apart, so
+            # they see the same machine; which goes first alternates case by case and round by round.
+            pair = sides if (k + position) % 2 == 0 else sides[::-1]
+            for slot, side in enumerate(pair):
+                for cid, rnd, _, ns in side.ask(("sample", threads * THREAD_ROUNDS + k, case_id), "samples"):
+                    samples.append({**by_id[cid].as_dict(), "round": rnd, "position": 2 * position + slot,
+                                    "phase": phase, "ns": ns, "version": side.version.label})
     measured: dict[tuple[str, str], list[int]] = {}
     for s in samples:
         if s["phase"] == "measure":

@@ -22,10 +22,10 @@ from harness.stats import holm, slower_beyond
 from harness.store import RunMetadata
 
 DRIFT_NOTE = (
-    "Mode: side by side. Both versions ran in this one run on this machine, alternating one round of a group "
-    "at a time (base, head, then head, base, ...), and each comparison is paired by round. It cancels machine "
-    "drift slower than a round (load from other jobs, frequency and thermal changes, a noisy neighbour that comes "
-    "and goes)."
+    "Mode: side by side. Both versions ran in this one run on this machine: each round takes one sample of "
+    "every case from each version, the two back to back (which goes first alternates), and each comparison is "
+    "paired by round. It cancels machine drift slower than a pair of samples (load from other jobs, frequency "
+    "and thermal changes, a noisy neighbour that comes and goes)."
 )
 SHARED_NOTE = (
     "Both versions' state buffers were placed in one shared set of pages, buffer by buffer in allocation order, "

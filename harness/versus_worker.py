@@ -1,8 +1,8 @@
-"""The worker of a side-by-side comparison: one code version's kernels, driven one round at a time.
+"""The worker of a side-by-side comparison: one code version's kernels, driven one sample at a time.
 
 The parent starts one of these per code version and thread count (a fresh interpreter, not a
 multiprocessing child, which would import the parent's main module and with it the parent's
-kernels) and tells each, in turn, to prepare a group or to run one round of it; the other version
+kernels) and tells each, in turn, to prepare a group or to time one case of it; the other version
 waits, so the two never run at the same time. Only the standard library is imported at module
 level: the version's ``kernels`` directory must come first on ``sys.path`` before anything
 imports ``kernels``. Started as ``python -P -m harness.versus_worker VERSION_DIR FD THREADS CPUS``,
@@ -67,6 +67,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
         flush = lambda: evict_caches(flush_buf)  # noqa: E731
     prepared = group = arena = None
     shared = False
+    last_round = None
     while True:
         message = conn.recv()
         if message[0] == "stop":
@@ -82,25 +83,25 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
                 prepared = prepare_group(group, context(wplan, {}, restore_inputs=shared), probes=False)
             conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles,
                                     "shared_pages": shared}))
-        elif message[0] == "round":
-            _, rnd, order = message
-            if not shared:
+        elif message[0] == "sample":
+            _, rnd, case_id = message
+            if not shared and rnd != last_round:
                 # Private buffers: where a buffer lands (page alignment, huge pages, the offset
                 # between input and output) can change a case's time by tens of percent and stays
                 # fixed for its life, so fresh, revalidated buffers each round turn it into noise
                 # instead of a bias of one version's process.
                 prepared = None
                 prepared = prepare_group(group, context(wplan, {}), probes=False)
-            # With shared pages the problems stay; each input is written back before each sample
-            # (prepared.prepare), since the other version's last round wrote into the same pages.
+            last_round = rnd
+            # With shared pages the problems stay; the inputs are written back before each sample
+            # (prepared.prepare), since the other version's last sample wrote into the same pages.
             rows = []
-            for position, case_id in enumerate(c for c in order if c in prepared.calls):
+            if case_id in prepared.calls:
                 if case_id in prepared.prepare:
                     prepared.prepare[case_id]()
                 if flush is not None:
                     flush()
-                ns = _measure(prepared.calls[case_id])
-                rows.append((case_id, rnd, position, ns))
+                rows.append((case_id, rnd, 0, _measure(prepared.calls[case_id])))
             conn.send(("samples", rows))
         else:
             raise RuntimeError(f"unknown command {message[0]!r}")

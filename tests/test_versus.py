@@ -71,7 +71,7 @@ def test_a_slowed_kernel_fails_and_the_unchanged_one_passes(tmp_path: Path) -> N
     run = tmp_path / "run"
     samples = pd.read_csv(run / "samples.csv")
     assert set(samples["version"]) == {"base", "head"}
-    # ABBA: the first slot of each round alternates between the versions.
+    # The version sampled first alternates from round to round (and from case to case).
     firsts = samples[samples["position"] == 0].sort_values("round").drop_duplicates("round")["version"].tolist()
     assert firsts[:4] == ["base", "head", "base", "head"]
     meta = json.loads((run / "metadata.json").read_text())
