@@ -36,10 +36,12 @@ class Arena:
             self._map = mmap.mmap(fh.fileno(), 0)
         self.bytes = np.frombuffer(self._map, dtype=np.uint8)
         self.used = 0
+        self.allocations: list[tuple[int, int]] = []  # (first byte, end) of each buffer handed out
 
     def reset(self) -> None:
         """Start again at the arena's first page (the previous buffers must no longer be used)."""
         self.used = 0
+        self.allocations = []
 
     def aligned_empty(self, nbytes: int, base_offset: int = 0, toucher: Callable[[np.ndarray], None] | None = None) -> np.ndarray:
         """Stands in for ``kernels.state.aligned_empty``: a zeroed buffer ``base_offset`` bytes past a page."""
@@ -48,12 +50,21 @@ class Arena:
         if end > self.bytes.size:
             raise MemoryError(f"shared arena of {self.bytes.size} bytes is full ({end} needed); the group's size estimate is short")
         self.used = end
+        self.allocations.append((start, end))
         raw = self.bytes[start:end]
         if toucher is None:
             raw[...] = 0
         else:
             toucher(raw)
         return raw[base_offset:]
+
+    def digest(self) -> str:
+        """A hash of where every buffer lies and of all the bytes handed out so far."""
+        import hashlib
+
+        h = hashlib.blake2b(repr(self.allocations).encode(), digest_size=16)
+        h.update(memoryview(self.bytes[: self.used]))
+        return h.hexdigest()
 
     def close(self) -> None:
         self.bytes = np.empty(0, np.uint8)

@@ -187,11 +187,15 @@ def _run_pair(group: Group, sides: list[_Side], suite: Suite, rounds: int, store
 def _run_pair_in(group: Group, sides: list[_Side], suite: Suite, rounds: int, store: RunStore,
                  metadata: dict[str, Any], threads: int, arena: str) -> None:
     records: dict[str, list[dict[str, Any]]] = {}
-    shared = []
+    shared, digests = [], []
     for side in sides:  # one at a time: compiling one version never overlaps timing the other
         answer = side.ask(("prepare", _group_data(group), arena), "prepared")
         records[side.version.label] = answer["records"]
         shared.append(bool(answer.get("shared_pages")))
+        digests.append(answer.get("arena_digest"))
+    # Same buffers at the same places holding the same values after each version prepared them:
+    # either version's samples leave the other's inputs as they were, so nothing is written back.
+    restore = not (all(shared) and digests[0] == digests[1])
     ids = [c.id for c in group.cases]
     rng = random.Random(f"{suite.seed}:versus:{group.label}")
     samples: list[dict[str, Any]] = []
@@ -205,7 +209,7 @@ def _run_pair_in(group: Group, sides: list[_Side], suite: Suite, rounds: int, st
             # they see the same machine; which goes first alternates case by case and round by round.
             pair = sides if (k + position) % 2 == 0 else sides[::-1]
             for slot, side in enumerate(pair):
-                for cid, rnd, _, ns in side.ask(("sample", threads * THREAD_ROUNDS + k, case_id), "samples"):
+                for cid, rnd, _, ns in side.ask(("sample", threads * THREAD_ROUNDS + k, case_id, restore), "samples"):
                     samples.append({**by_id[cid].as_dict(), "round": rnd, "position": 2 * position + slot,
                                     "phase": phase, "ns": ns, "version": side.version.label})
     measured: dict[tuple[str, str], list[int]] = {}
@@ -219,5 +223,6 @@ def _run_pair_in(group: Group, sides: list[_Side], suite: Suite, rounds: int, st
             row["version"] = label
             cases.append(row)
     store.append(cases, samples)
-    metadata["groups"][group.label] = {"rounds": rounds, "warmup": suite.timing.warmup, "shared_pages": all(shared)}
+    metadata["groups"][group.label] = {"rounds": rounds, "warmup": suite.timing.warmup, "shared_pages": all(shared),
+                                        "inputs_restored": restore}
     store.write_metadata(metadata)

@@ -68,6 +68,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
     prepared = group = arena = None
     shared = False
     last_round = None
+    own: set[str] = set()
     while True:
         message = conn.recv()
         if message[0] == "stop":
@@ -81,10 +82,11 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             arena = Arena(arena_path) if arena_path else None
             with placed_in(arena) as shared:
                 prepared = prepare_group(group, context(wplan, {}, restore_inputs=shared), probes=False)
+            own = _own_restores(group, prepared)
             conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles,
-                                    "shared_pages": shared}))
+                                    "shared_pages": shared, "arena_digest": arena.digest() if shared else None}))
         elif message[0] == "sample":
-            _, rnd, case_id = message
+            _, rnd, case_id, restore = message
             if not shared and rnd != last_round:
                 # Private buffers: where a buffer lands (page alignment, huge pages, the offset
                 # between input and output) can change a case's time by tens of percent and stays
@@ -93,11 +95,12 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
                 prepared = None
                 prepared = prepare_group(group, context(wplan, {}), probes=False)
             last_round = rnd
-            # With shared pages the problems stay; the inputs are written back before each sample
-            # (prepared.prepare), since the other version's last sample wrote into the same pages.
+            # With shared pages the problems stay. When the two versions allocated differently, the
+            # other version's last sample may have written into this one's inputs: the parent then
+            # asks for them to be written back before each sample (as for a kernel that overwrites them).
             rows = []
             if case_id in prepared.calls:
-                if case_id in prepared.prepare:
+                if case_id in prepared.prepare and (restore or case_id in own):
                     prepared.prepare[case_id]()
                 if flush is not None:
                     flush()
@@ -105,6 +108,16 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             conn.send(("samples", rows))
         else:
             raise RuntimeError(f"unknown command {message[0]!r}")
+
+
+def _own_restores(group: Any, prepared: Any) -> set[str]:
+    """Cases whose kernel overwrites its inputs: they are restored before every sample regardless."""
+    from harness.cases import CaseKind
+    from kernels.registry import get_kernel
+
+    if group.kind is not CaseKind.KERNEL or not getattr(get_kernel(group.kernel), "overwrites_inputs", False):
+        return set()
+    return set(prepared.prepare)
 
 
 if __name__ == "__main__":
