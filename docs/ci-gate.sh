@@ -12,7 +12,7 @@
 # SUITE is a suite file or a built-in name ('smoke'). Settings from the environment:
 #   GATE_THRESHOLD  slowdown that counts, as a fraction (default 0.05 side by side, 0.10 stored)
 #   GATE_NORMALISE  --stored only: set to 1 to gate relative to the same run's triad bandwidth
-#   GATE_ROUNDS     side by side only: paired rounds per group (default 20)
+#   GATE_ROUNDS     side by side only: paired rounds per group (default 40)
 #   GATE_WORK       directory for the venv, the run directory and gate.md (default: ci-gate)
 #   GATE_PYTHON     a Python that already has stridewise installed (default: make a fresh venv);
 #                   run with -P, so the installed package is used, never the current directory
@@ -41,7 +41,7 @@ rm -rf "$work/run"
 status=0
 if [ "$mode" = versus ]; then
     "$python" -P -m harness versus "$against" --suite "$suite" --repo "$here" --out "$work/run" --quiet \
-        --threshold "${GATE_THRESHOLD:-0.05}" --rounds "${GATE_ROUNDS:-20}" > "$work/gate.md" || status=$?
+        --threshold "${GATE_THRESHOLD:-0.05}" --rounds "${GATE_ROUNDS:-40}" > "$work/gate.md" || status=$?
 else
     "$python" -P -m harness sweep "$suite" --quiet --out "$work/run"
     set -- "$against" "$work/run" --threshold "${GATE_THRESHOLD:-0.10}" --out "$work/gate.md"

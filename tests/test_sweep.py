@@ -178,13 +178,18 @@ def test_harness_median_agrees_with_timeit() -> None:
          "kernel 'laplacian' has no schedule with a strip width; kernels of this suite that take one: varcoef"),
     ],
 )
-def test_bad_suites_are_one_line_errors_exit_2(tmp_path: Path, text: str, message: str) -> None:
+def test_bad_suites_are_one_line_errors_exit_2(tmp_path: Path, text: str, message: str,
+                                              capsys: pytest.CaptureFixture[str]) -> None:
+    """In process (the command line's main), since every one of these fails before a worker starts."""
+    from harness.commands import main
+
     path = tmp_path / "bad.toml"
     path.write_text(text)
     out = tmp_path / "run"
-    proc = _sweep(str(path), "--out", str(out))
-    assert proc.returncode == 2, proc.stderr
-    assert message in proc.stderr and proc.stderr.count("\n") == 1 and "Traceback" not in proc.stderr
+    status = main(["sweep", "--quiet", str(path), "--out", str(out)])
+    err = capsys.readouterr().err
+    assert status == 2, err
+    assert message in err and err.count("\n") == 1 and "Traceback" not in err
     assert not out.exists()  # nothing written half-way
 
 

@@ -19,7 +19,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
     vs_p.add_argument("head", nargs="?", default=None,
                       help="head version, likewise (default: the kernels this stridewise runs, i.e. the working tree)")
     vs_p.add_argument("--suite", default="smoke", help="suite file or built-in name (default: smoke)")
-    vs_p.add_argument("--rounds", type=int, default=20, help="measured round pairs per group (default 20)")
+    vs_p.add_argument("--rounds", type=int, default=40,
+                      help="measured rounds per group, each one sample of every case from each version (default 40)")
     vs_p.add_argument("--threshold", type=float, default=0.05, help="slowdown that counts, as a fraction (default 0.05)")
     vs_p.add_argument("--confidence", type=float, default=0.95, help="confidence level (default 0.95)")
     vs_p.add_argument("--cases", action="append", default=[], metavar="GLOB", help="gate only case ids matching (repeatable)")
