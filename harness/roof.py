@@ -62,7 +62,11 @@ class RoofCurve:
         return cls(int(data["threads"]), tuple(data["footprint_bytes"]), tuple(data["bandwidth_bytes_per_s"]))  # type: ignore[arg-type]
 
 
-def footprints(max_bytes: int, min_bytes: int = 16 << 10) -> list[int]:
+#: The roof curve's triad footprints: from 16 KiB (its first point) up to at most 1 TiB.
+MIN_FOOTPRINT, MAX_FOOTPRINT = 16 << 10, 1 << 40
+
+
+def footprints(max_bytes: int, min_bytes: int = MIN_FOOTPRINT) -> list[int]:
     """Footprints from 16 KiB doubling up to ``max_bytes``, with a midpoint between each doubling."""
     out, size = [], min_bytes
     while size <= max_bytes:

@@ -130,6 +130,15 @@ class RunStore:
                 with target.open("w", newline="") as fh:
                     csv.writer(fh).writerow(columns + list(OPTIONAL_COLUMNS))
 
+    def check_writable(self) -> None:
+        """Refuse, before anything is written, a run directory that cannot take new files."""
+        probe = self.path / ".write-test"
+        try:
+            probe.write_text("")
+            probe.unlink()
+        except OSError as exc:
+            raise RunStoreError(f"run directory '{self.path}' is not writable ({exc.strerror}); nothing was changed") from None
+
     def write_metadata(self, metadata: dict[str, Any]) -> None:
         tmp = self.path / (METADATA + ".tmp")
         tmp.write_text(json.dumps(metadata, indent=2, default=str))

@@ -11,6 +11,7 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
+from harness.roof import MAX_FOOTPRINT, MIN_FOOTPRINT
 from harness.sampling import Timing
 from kernels.errors import StridewiseError
 from kernels.grid import Extents, check_dtype
@@ -211,7 +212,7 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
             raise SuiteError(f"mix.{kname} must be >= 0, got {weight}")
         mix.append((kname, float(weight)))
     return Suite(
-        name=_expect(data.get("name", Path(source).stem), str, "name"),
+        name=_suite_name(data.get("name", Path(source).stem)),
         description=_expect(data.get("description", ""), str, "description"),
         seed=_expect(data.get("seed", 0), int, "seed"),
         sizes=sizes,
@@ -226,6 +227,16 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
         mix=tuple(mix),
         kernel_options=tuple(options),
     )
+
+
+def _suite_name(value: Any) -> str:
+    """The suite's name, which becomes part of a run directory's name: no separators, no NUL."""
+    name = _expect(value, str, "name")
+    bad = [c for c in ("/", "\\", "\0") if c in name]
+    if bad or name in ("", ".", "..") or not name.isprintable():
+        raise SuiteError(f"suite name {name!r} cannot name a run directory; use letters, digits, '-', '_' and '.' "
+                         "(no '/', '\\', control characters, and not '.' or '..')")
+    return name
 
 
 def _auto(value: Any) -> int:
@@ -249,6 +260,9 @@ def _timing(section: dict[str, Any]) -> Timing:
         raise SuiteError("timing.min_repeats must be >= 1")
     if values["repetitions"] < 1:
         raise SuiteError("timing.repetitions must be >= 1")
+    if values["roof"] and not MIN_FOOTPRINT <= values["roof_max_bytes"] <= MAX_FOOTPRINT:
+        raise SuiteError(f"timing.roof_max_bytes must be between {MIN_FOOTPRINT} (the smallest triad footprint) and "
+                         f"{MAX_FOOTPRINT} bytes, got {values['roof_max_bytes']}")
     return Timing(**values)
 
 
@@ -260,7 +274,10 @@ def read_suite_text(path_or_name: str | None) -> str:
     path = Path(name)
     if not path.is_file():
         raise SuiteError(f"suite file '{name}' not found; give a TOML file or one of: {', '.join(BUILTIN_SUITES)}")
-    return path.read_text()
+    try:
+        return path.read_text(encoding="utf-8")
+    except UnicodeDecodeError as exc:
+        raise SuiteError(f"suite file '{name}' is not UTF-8 text (byte {exc.start}: {exc.reason}); a suite is a TOML file") from None
 
 
 def load_suite(path_or_name: str | None) -> Suite:

@@ -60,6 +60,7 @@ def run_sweep(
     fingerprint = machine.fingerprint()
     if resume:
         store = RunStore(Path(resume))
+        store.check_writable()
         old = store.metadata()
         suite_text = store.suite_text()
         suite = parse_suite(tomllib.loads(suite_text), old.get("suite", {}).get("name", "resumed"))

@@ -16,6 +16,12 @@ HORIZONTAL_AXES: tuple[str, ...] = ("y", "x")
 SUPPORTED_DTYPES: tuple[str, ...] = ("float32", "float64")
 
 
+#: Largest extent of one axis, and of a whole grid in points: byte offsets of any layout of such a
+#: grid (padding and 16-byte elements included) stay far inside a signed 64-bit integer.
+MAX_EXTENT = 2**31 - 1
+MAX_POINTS = 2**48
+
+
 @dataclass(frozen=True)
 class Extents:
     """Logical extents of a grid: variables, vertical levels and the horizontal grid."""
@@ -32,7 +38,13 @@ class Extents:
                 raise LayoutError(f"extent of axis '{axis}' must be an integer, got {value!r}")
             if value <= 0:
                 raise LayoutError(f"extent of axis '{axis}' must be positive, got {value}")
+            if value > MAX_EXTENT:
+                raise LayoutError(f"extent of axis '{axis}' is {value}, above the largest supported extent {MAX_EXTENT}")
             object.__setattr__(self, axis, int(value))
+        if self.var * self.z * self.y * self.x > MAX_POINTS:
+            largest = max(LOGICAL_AXES, key=lambda a: getattr(self, a))
+            raise LayoutError(f"grid {self.var}x{self.z}x{self.y}x{self.x} has more than {MAX_POINTS} points, beyond any "
+                              f"machine's memory (largest axis: '{largest}' = {getattr(self, largest)}); use a smaller grid")
 
     def __getitem__(self, axis: str) -> int:
         if axis not in LOGICAL_AXES:

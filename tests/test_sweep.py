@@ -280,3 +280,48 @@ def test_repeat_runs_every_group_again_and_reports_agreement(tmp_path: Path) -> 
 def test_bad_repeat_is_a_one_line_error(args: list[str], message: str) -> None:
     proc = _sweep(*args)
     assert proc.returncode == 2 and message in proc.stderr and proc.stderr.count("\n") == 1
+
+
+@pytest.mark.parametrize("argv, message", [
+    (["layouts", "--grid", "var=2,z=8,y=16,x=1000000000000000000000000000000"], "above the largest supported extent"),
+    (["layouts", "--grid", "var=200000,z=80000,y=16000,x=1000000"], "more than 281474976710656 points"),
+    (["roof", "--max-bytes", "1KiB"], "--max-bytes must be between 16KiB"),
+    (["sweep", "SUITE:\xff\xfename = 'x'\n"], "is not UTF-8 text"),
+    (["sweep", "SUITE:name = 'a/b'\n"], "cannot name a run directory"),
+    (["sweep", 'SUITE:name = "a\\u0000b"\n'], "cannot name a run directory"),  # a NUL, by TOML's escape
+    (["sweep", "SUITE:[timing]\nroof_max_bytes = 0\n"], "timing.roof_max_bytes must be between"),
+])
+def test_hostile_input_is_a_one_line_error(tmp_path: Path, argv: list[str], message: str,
+                                           capsys: pytest.CaptureFixture[str]) -> None:
+    """Inputs that once ended in a traceback (or a hang) give one line and exit 2."""
+    from harness.commands import main
+
+    if argv[-1].startswith("SUITE:"):
+        suite = tmp_path / "hostile.toml"
+        suite.write_bytes(argv[-1][len("SUITE:"):].encode("latin-1"))
+        argv = argv[:-1] + [str(suite), "--out", str(tmp_path / "run")]
+    status = main(argv)
+    err = capsys.readouterr().err
+    assert status == 2 and message in err and err.count("\n") == 1 and "Traceback" not in err, err
+
+
+def test_resume_of_a_run_that_cannot_be_written_changes_nothing(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                                                 capsys: pytest.CaptureFixture[str]) -> None:
+    """A read-only run directory (simulated at the write call: root ignores permission bits)."""
+    from harness.commands import main
+
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "metadata.json").write_text("{}")
+    original = Path.write_text
+
+    def refuse(self: Path, *args: object, **kwargs: object) -> int:
+        if self.parent == run:
+            raise OSError(30, "Read-only file system")
+        return original(self, *args, **kwargs)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(Path, "write_text", refuse)
+    assert main(["sweep", "--quiet", "--resume", str(run)]) == 2
+    err = capsys.readouterr().err
+    assert "is not writable (Read-only file system); nothing was changed" in err and err.count("\n") == 1
+    assert sorted(p.name for p in run.iterdir()) == ["metadata.json"]

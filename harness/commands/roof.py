@@ -10,7 +10,7 @@ from typing import Any
 
 from harness import machine
 from harness.processes import ChildError, environment, receive
-from harness.roof import RoofCurve
+from harness.roof import MAX_FOOTPRINT, MIN_FOOTPRINT, RoofCurve
 from harness.tables import render
 from harness.worker import worker_environment
 from kernels.errors import StridewiseError
@@ -58,6 +58,8 @@ def run_roof(args: argparse.Namespace) -> int:
     else:
         counts = sorted({1, usable})
     max_bytes = parse_bytes(args.max_bytes)
+    if not MIN_FOOTPRINT <= max_bytes <= MAX_FOOTPRINT:
+        raise StridewiseError(f"--max-bytes must be between 16KiB (the smallest triad footprint) and 1TiB, got {args.max_bytes}")
     ctx = multiprocessing.get_context("spawn")
     curves = []
     for threads in counts:  # one fresh process per thread count, like the sweep's workers
