@@ -39,6 +39,12 @@ def check_memory(groups: list[Group], suite: Suite) -> None:
     if not available:
         return
     flush = suite.timing.flush_bytes if suite.timing.cold_cache else 0
+    roof = suite.timing.roof_max_bytes
+    if suite.timing.roof and roof > MEMORY_SHARE * available:
+        raise SuiteError(
+            f"timing.roof_max_bytes asks for a {roof / 2**30:.1f} GiB triad (the roof curve's largest point), more than "
+            f"{MEMORY_SHARE:.0%} of the {available / 2**30:.1f} GiB available; lower it or set timing.roof = false"
+        )
     for group in groups:
         need = group_bytes(group) + flush
         if need > MEMORY_SHARE * available:

@@ -325,3 +325,16 @@ def test_resume_of_a_run_that_cannot_be_written_changes_nothing(tmp_path: Path, 
     err = capsys.readouterr().err
     assert "is not writable (Read-only file system); nothing was changed" in err and err.count("\n") == 1
     assert sorted(p.name for p in run.iterdir()) == ["metadata.json"]
+
+
+def test_a_roof_curve_larger_than_memory_is_refused(monkeypatch: pytest.MonkeyPatch) -> None:
+    from harness import machine
+    from harness.suite import SuiteError, parse_suite
+    from harness.sweep import check_memory
+
+    monkeypatch.setattr(machine, "available_memory_bytes", lambda: 4 << 30)
+    suite = parse_suite({"kernels": {"select": ["laplacian"]}, "timing": {"roof_max_bytes": 8 << 30}})
+    with pytest.raises(SuiteError, match="roof_max_bytes asks for a 8.0 GiB triad.*of the 4.0 GiB available"):
+        check_memory([], suite)
+    check_memory([], parse_suite({"kernels": {"select": ["laplacian"]}, "timing": {"roof_max_bytes": 1 << 30}}))
+    check_memory([], parse_suite({"kernels": {"select": ["laplacian"]}, "timing": {"roof_max_bytes": 8 << 30, "roof": False}}))
