@@ -21,7 +21,8 @@ class Prepared:
 
     records: dict[str, dict[str, Any]] = field(default_factory=dict)
     calls: dict[str, Any] = field(default_factory=dict)
-    prepare: dict[str, Any] = field(default_factory=dict)
+    prepare: dict[str, Any] = field(default_factory=dict)  # before every sample: the kernel overwrites its inputs
+    restorers: dict[str, Any] = field(default_factory=dict)  # every kernel case's, when the context asks for them
     compiles: list[dict[str, Any]] = field(default_factory=list)
 
     def compile(self, dispatcher: Any, args: tuple) -> dict[str, Any]:
@@ -53,8 +54,8 @@ class Context:
     kernel_options: dict[str, tuple[tuple[str, int], ...]]
     inspect_vectorisation: bool
     seen_reports: dict[str, dict[str, Any]]  # vector reports already read, by specialisation
-    #: Write every input back before each sample, not only a kernel's that overwrites them: its
-    #: buffers share pages with another process's (the side-by-side gate).
+    #: Also make a restorer for every kernel case (``Prepared.restorers``): its buffers share pages
+    #: with another process's (the side-by-side gate), which decides later whether to use them.
     restore_inputs: bool = False
 
 
@@ -96,7 +97,10 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
             if kernel.overwrites_inputs or ctx.restore_inputs:
                 if case.layout not in restorers:
                     restorers[case.layout] = _restorer(problem)
-                out.prepare[case.id] = restorers[case.layout]
+                if kernel.overwrites_inputs:
+                    out.prepare[case.id] = restorers[case.layout]
+                if ctx.restore_inputs:
+                    out.restorers[case.id] = restorers[case.layout]
         except Exception as exc:  # noqa: BLE001 - recorded as the case's error
             rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
 

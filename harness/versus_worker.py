@@ -68,7 +68,6 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
     prepared = group = arena = None
     shared = False
     last_round = None
-    own: set[str] = set()
     while True:
         message = conn.recv()
         if message[0] == "stop":
@@ -82,7 +81,6 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             arena = Arena(arena_path) if arena_path else None
             with placed_in(arena) as shared:
                 prepared = prepare_group(group, context(wplan, {}, restore_inputs=shared), probes=False)
-            own = _own_restores(group, prepared)
             conn.send(("prepared", {"records": list(prepared.records.values()), "compiles": prepared.compiles,
                                     "shared_pages": shared, "arena_digest": arena.digest() if shared else None}))
         elif message[0] == "sample":
@@ -100,7 +98,9 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             # asks for them to be written back before each sample (as for a kernel that overwrites them).
             rows = []
             if case_id in prepared.calls:
-                if case_id in prepared.prepare and (restore or case_id in own):
+                if restore and case_id in prepared.restorers:
+                    prepared.restorers[case_id]()
+                elif case_id in prepared.prepare:
                     prepared.prepare[case_id]()
                 if flush is not None:
                     flush()
@@ -108,16 +108,6 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
             conn.send(("samples", rows))
         else:
             raise RuntimeError(f"unknown command {message[0]!r}")
-
-
-def _own_restores(group: Any, prepared: Any) -> set[str]:
-    """Cases whose kernel overwrites its inputs: they are restored before every sample regardless."""
-    from harness.cases import CaseKind
-    from kernels.registry import get_kernel
-
-    if group.kind is not CaseKind.KERNEL or not getattr(get_kernel(group.kernel), "overwrites_inputs", False):
-        return set()
-    return set(prepared.prepare)
 
 
 if __name__ == "__main__":
