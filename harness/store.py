@@ -117,11 +117,9 @@ class RunStore:
         optional columns included)."""
         try:
             self.path.mkdir(parents=True, exist_ok=True)
-            probe = self.path / ".write-test"
-            probe.write_text("")
-            probe.unlink()
         except OSError as exc:
             raise RunStoreError(f"results directory '{self.path}' is not writable: {exc.strerror}") from None
+        self.check_writable()
         (self.path / SUITE).write_text(suite_text)
         self.write_metadata(metadata)
         for name, columns in ((SAMPLES, SAMPLE_COLUMNS), (CASES, CASE_COLUMNS)):
