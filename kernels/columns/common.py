@@ -13,6 +13,7 @@ import numpy as np
 
 from kernels.base import Kernel, Schedule
 from kernels.grid import Extents
+from kernels.jit import inline
 from kernels.state import State
 
 #: Default strip width (columns swept together) of the strip schedules. With the horizontal
@@ -29,6 +30,18 @@ STRIP = Schedule(
     "a strip of columns per z step; innermost loop along the contiguous non-z axis; threads split the strips",
     (("width", STRIP_WIDTH),),
 )
+
+PAIRED = Schedule(
+    "pairs",
+    "two columns at a time, their z recurrences interleaved to hide division latency; threads split the pairs",
+)
+
+
+@inline
+def column_at(col, inner):  # type: ignore[no-untyped-def]
+    """``(outer, inner)`` indices of flat column ``col`` of an ``(outer, z, inner)`` view, unsigned."""
+    o = col // inner
+    return np.uintp(o), np.uintp(col - o * inner)
 
 
 def column_view(state: State) -> np.ndarray:

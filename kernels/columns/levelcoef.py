@@ -12,7 +12,7 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_view, diffusion_coefficients, interface_diffusivity, right_hand_side
+from kernels.columns.common import COLUMN, PAIRED, STRIP, ColumnSolve, STRIP_WIDTH, column_at, column_view, diffusion_coefficients, interface_diffusivity, right_hand_side
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
 from kernels.parallel import chunk, thread_count
@@ -74,13 +74,40 @@ def solve_strips(a, b, c, d, x, nz, one, fac, nchunks, width):  # type: ignore[n
                     x[o, k, i] -= ck * x[o, k + 1, i]
 
 
+def solve_pairs(a, b, c, d, x, nz, one, fac, nchunks):  # type: ignore[no-untyped-def]
+    """Substitutions for two columns at once, their recurrences interleaved (see varcoef's pairs)."""
+    factorise_levels(a, b, c, nz, one, fac)
+    inner = d.shape[2]
+    ncol = d.shape[0] * inner
+    npair = (ncol + 1) // 2
+    for t in prange(nchunks):
+        lo, hi = chunk(npair, nchunks, t)
+        for pair in range(lo, hi):
+            o, i = column_at(2 * pair, inner)
+            p, j = column_at(min(2 * pair + 1, ncol - 1), inner)
+            x0, x1 = d[o, 0, i] * fac[1, 0], d[p, 0, j] * fac[1, 0]
+            x[o, 0, i], x[p, 0, j] = x0, x1
+            for kk in range(1, nz):
+                k = np.uintp(kk)  # unsigned: no negative-index wrap
+                ak, rk = a[k], fac[1, k]
+                x0, x1 = (d[o, k, i] - ak * x0) * rk, (d[p, k, j] - ak * x1) * rk
+                x[o, k, i], x[p, k, j] = x0, x1
+            for kk in range(nz - 2, -1, -1):
+                k = np.uintp(kk)
+                ck = fac[0, k]
+                x0, x1 = x[o, k, i] - ck * x0, x[p, k, j] - ck * x1
+                x[o, k, i], x[p, k, j] = x0, x1
+
+
 COLUMNS = build(solve_columns)
 STRIPS = build(solve_strips)
+PAIRS = build(solve_pairs)
 
 
 class LevelCoef(ColumnSolve):
     name = "levelcoef"
     summary = "tridiagonal solve per (variable, column); a, b, c per level only (1-D), d 3-D"
+    schedules = (COLUMN, STRIP, PAIRED)
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
         return {"a": extents.z, "b": extents.z, "c": extents.z, "d": extents}
@@ -96,6 +123,8 @@ class LevelCoef(ColumnSolve):
         fac = np.zeros((2, ext.z), dt)
         if schedule.name == "column":
             return COLUMNS, (*common, ext.z, dt.type(1), fac, thread_count())
+        if schedule.name == "pairs":
+            return PAIRS, (*common, ext.z, dt.type(1), fac, thread_count())
         return STRIPS, (*common, ext.z, dt.type(1), fac, thread_count(), schedule.param("width", STRIP_WIDTH))
 
     def factorised_systems(self, extents: Extents) -> int:

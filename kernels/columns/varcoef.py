@@ -12,7 +12,7 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_view, field_coefficient_inputs
+from kernels.columns.common import COLUMN, PAIRED, STRIP, ColumnSolve, STRIP_WIDTH, column_at, column_view, field_coefficient_inputs
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, thread_count
@@ -70,14 +70,50 @@ def solve_strips(a, b, c, d, x, nz, one, cp):  # type: ignore[no-untyped-def]
                     x[o, k, i] -= cp[t, k, s] * x[o, k + 1, i]
 
 
+def solve_pairs(a, b, c, d, x, nz, one, cp):  # type: ignore[no-untyped-def]
+    """Thomas along z for two columns at once, their recurrences interleaved; cp is (threads, 2, nz).
+
+    One column's chain waits on a division every level; two independent chains in one loop let
+    the core overlap them. With an odd count the last pair is one column twice (same values).
+    """
+    inner = a.shape[2]
+    ncol = a.shape[0] * inner
+    npair = (ncol + 1) // 2
+    nchunks = cp.shape[0]
+    for t in prange(nchunks):
+        lo, hi = chunk(npair, nchunks, t)
+        for pair in range(lo, hi):
+            o, i = column_at(2 * pair, inner)
+            p, j = column_at(min(2 * pair + 1, ncol - 1), inner)
+            r0, r1 = one / b[o, 0, i], one / b[p, 0, j]
+            c0, c1 = c[o, 0, i] * r0, c[p, 0, j] * r1
+            x0, x1 = d[o, 0, i] * r0, d[p, 0, j] * r1
+            cp[t, 0, 0], cp[t, 1, 0] = c0, c1
+            x[o, 0, i], x[p, 0, j] = x0, x1
+            for kk in range(1, nz):
+                k = np.uintp(kk)  # unsigned: no negative-index wrap
+                a0, a1 = a[o, k, i], a[p, k, j]
+                r0, r1 = one / (b[o, k, i] - a0 * c0), one / (b[p, k, j] - a1 * c1)
+                c0, c1 = c[o, k, i] * r0, c[p, k, j] * r1
+                x0, x1 = (d[o, k, i] - a0 * x0) * r0, (d[p, k, j] - a1 * x1) * r1
+                cp[t, 0, k], cp[t, 1, k] = c0, c1
+                x[o, k, i], x[p, k, j] = x0, x1
+            for kk in range(nz - 2, -1, -1):
+                k = np.uintp(kk)
+                x0, x1 = x[o, k, i] - cp[t, 0, k] * x0, x[p, k, j] - cp[t, 1, k] * x1
+                x[o, k, i], x[p, k, j] = x0, x1
+
+
 COLUMNS = build(solve_columns)
 STRIPS = build(solve_strips)
+PAIRS = build(solve_pairs)
 
 
 class VarCoef(ColumnSolve):
     name = "varcoef"
     summary = "tridiagonal solve per (variable, column); a, b, c, d all 3-D fields"
     padding_value = {"b": 1.0}  # padded columns solve x = d = 0 instead of dividing by zero
+    schedules = (COLUMN, STRIP, PAIRED)
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
         return {k: extents for k in "abcd"}
@@ -90,6 +126,8 @@ class VarCoef(ColumnSolve):
         views = tuple(column_view(f[k]) for k in "abcd") + (column_view(problem.output),)
         if schedule.name == "column":
             return COLUMNS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z), dt))
+        if schedule.name == "pairs":
+            return PAIRS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), 2, ext.z), dt))
         width = schedule.param("width", STRIP_WIDTH)
         return STRIPS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z, width), dt))
 

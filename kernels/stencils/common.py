@@ -24,6 +24,7 @@ from kernels.jit import Compiled, build, inline
 from kernels.layout import TILES
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.state import State
+from kernels.stencils.bands import band_geometry, band_walk, has_band_form, scratch_offsets
 
 NDIM = 6  # rows are walked as a 6-axis nest (axes of count 1 pad shorter layouts)
 
@@ -196,7 +197,21 @@ def row_walk(name: str, offsets: Callable[..., Any], point: Callable[..., Any], 
     walk = types.FunctionType(_walk.__code__, namespace, f"{name}_rows")
     walk.__qualname__ = walk.__name__  # its own cache files and compile records
     walk.__module__ = _walk.__module__
-    return build(walk)
+    compiled = build(walk)
+    _PIECES[compiled.name] = (name, offsets, point)
+    return compiled
+
+
+#: The pieces of every row walk, by its compiled name, for building the same stencil's band walk.
+_PIECES: dict[str, tuple[str, Callable[..., Any], Callable[..., Any]]] = {}
+_BAND_WALKS: dict[str, Compiled] = {}
+
+
+def band_walk_of(walk: Compiled) -> Compiled:
+    """The band walk with the same pieces as the row walk ``walk`` (built once, lazily)."""
+    if walk.name not in _BAND_WALKS:
+        _BAND_WALKS[walk.name] = band_walk(*_PIECES[walk.name])
+    return _BAND_WALKS[walk.name]
 
 
 class Stencil(Kernel):
@@ -228,6 +243,8 @@ class Stencil(Kernel):
 
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         fields = problem.fields
+        if self.companion is None and len(fields) == 1 and has_band_form(fields["q"]):
+            return self._band_implementation(problem, schedule)
         g = row_geometry(fields["q"], self.halo, self.merge_vertical)
         w = g if self.companion is None else row_geometry(fields[self.companion], self.halo, False, zero_var_stride=True)
         extra = tuple(st.data.reshape(-1) for key, st in fields.items() if key != "q")
@@ -236,3 +253,17 @@ class Stencil(Kernel):
             self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name),
         )
         return self.walk, args
+
+    def _band_implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
+        """Layouts ending in an x tile, y tiled: the band walk over plain rows in scratch."""
+        q, h = problem.fields["q"], self.halo
+        g = band_geometry(q, h)
+        ty, tx = q.layout.tiles["y"], q.layout.tiles["x"]
+        frame = problem.extents.x + 2 * h
+        sdy, sdx = scratch_offsets(h, frame)
+        scratch = lambda: np.zeros((thread_count(), (ty + 2 * h) * frame), problem.dtype)  # noqa: E731
+        args = (
+            q.data.reshape(-1), problem.output.data.reshape(-1), (), g.counts, g.strides, g.jmul, g.yoff, g.runs,
+            ty, tx, h, sdy, sdx, scratch(), scratch(), self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name),
+        )
+        return band_walk_of(self.walk), args

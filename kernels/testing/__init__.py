@@ -28,7 +28,7 @@ GRID = Extents(var=3, z=5, y=4, x=6)
 #: a base offset, and tile indices innermost.
 SPECIAL_LAYOUTS = (
     "y/2.x/3.var.z.y%2.x%3",
-    "y/4.x/6.var.z.y%4.x%6",
+    "y/4.x/6.var.z.y%4.x%6+2",
     "var.z.y+1.x+8",
     "z+2.var+1.y.x@16",
     "y%2.x%3.var.z.y/2.x/3",
