@@ -89,17 +89,23 @@ class Compiled:
     parallel: Any
     serial: Any
     empty: Any
+    #: ``(library path, symbol)`` when the work is done by a native library (``kernels.native``).
+    native: tuple[str, str] | None = None
 
 
-def build(fn: Callable[..., Any]) -> Compiled:
-    """Compile lazily ``fn`` as a threaded build, a ``parallel=False`` twin and an empty twin."""
-    opts = dict(JIT_OPTIONS)
+def build(fn: Callable[..., Any], cache: bool = True, native: tuple[str, str] | None = None) -> Compiled:
+    """Compile lazily ``fn`` as a threaded build, a ``parallel=False`` twin and an empty twin.
+
+    ``cache=False`` for code numba cannot cache (e.g. calling a library loaded at run time).
+    """
+    opts = dict(JIT_OPTIONS, cache=cache)
     return Compiled(
         name=fn.__qualname__,
         py_func=fn,
         parallel=numba.njit(parallel=True, **opts)(fn),
         serial=numba.njit(parallel=False, **opts)(_twin(fn, "_serial")),
         empty=numba.njit(parallel=True, error_model="numpy", cache=False)(_empty_of(fn)),
+        native=native,
     )
 
 
@@ -144,6 +150,8 @@ def vector_report(compiled: Compiled, args: tuple[Any, ...], parallel: bool = Tr
     source-hash-keyed cache directory, so each specialisation is inspected once per source.
     """
     key = f"{compiled.name}|{parallel}|{tuple(numba.typeof(a) for a in args)}|{numba_config.CPU_NAME or ''}"
+    if compiled.native:  # the library may be rebuilt under the same name
+        key += f"|{compiled.native[0]}|{os.stat(compiled.native[0]).st_mtime_ns}"
     store = Path(cache_dir()) / "vector_reports.json"
     try:
         known = json.loads(store.read_text())
@@ -164,11 +172,14 @@ def vector_report(compiled: Compiled, args: tuple[Any, ...], parallel: bool = Tr
 
 
 def _inspect(compiled: Compiled, args: tuple[Any, ...], parallel: bool) -> dict[str, Any]:
-    opts = {k: v for k, v in JIT_OPTIONS.items() if k != "cache"}
-    dispatcher = numba.njit(parallel=parallel, **opts)(compiled.py_func)
-    sig = tuple(numba.typeof(a) for a in args)
-    dispatcher.compile(sig)
-    asm = dispatcher.inspect_asm(sig)
+    if compiled.native:
+        asm = _disassemble(*compiled.native, args)
+    else:
+        opts = {k: v for k, v in JIT_OPTIONS.items() if k != "cache"}
+        dispatcher = numba.njit(parallel=parallel, **opts)(compiled.py_func)
+        sig = tuple(numba.typeof(a) for a in args)
+        dispatcher.compile(sig)
+        asm = dispatcher.inspect_asm(sig)
     packed_lines = [line for line in asm.splitlines() if _PACKED.match(line)]
     regs = {m for line in packed_lines for m in _WIDEST.findall(line)}
     width = {"z": 512, "y": 256, "x": 128}
@@ -178,3 +189,16 @@ def _inspect(compiled: Compiled, args: tuple[Any, ...], parallel: bool) -> dict[
         "vector_bits": max((width[r] for r in regs), default=0),
         "vectorised": bool(packed_lines),
     }
+
+
+def _disassemble(library: str, symbol: str, args: tuple[Any, ...]) -> str:
+    """Machine code of a native kernel's function for the dtype of ``args[1]`` (objdump, AT&T)."""
+    import subprocess
+
+    name = f"{symbol}_{'f64' if args[1].itemsize == 8 else 'f32'}"
+    try:
+        done = subprocess.run(["objdump", "-d", "--no-show-raw-insn", f"--disassemble={name}", library], capture_output=True, text=True, check=True)
+    except (OSError, subprocess.CalledProcessError) as exc:
+        raise RuntimeError(f"cannot disassemble {name} in {library} (objdump from binutils is needed): {exc}") from None
+    # "  1100:\tvaddpd ..." -> "\tvaddpd ...": the instruction alone, as numba's assembly shows it
+    return "\n".join("\t" + line.split(":", 1)[1].strip() for line in done.stdout.splitlines() if ":\t" in line)

@@ -11,6 +11,7 @@ from kernels.errors import KernelError, LayoutError
 from kernels.grid import Extents
 from kernels.notation import parse_layout
 from kernels.registry import all_kernels, get_kernel
+from kernels.jit import vector_report
 from kernels.state import State
 from kernels.testing import CHECKS, DTYPES, GRID, ContractViolation, check_layouts, check_traffic_model
 from kernels.testing.strategies import layouts_for
@@ -132,22 +133,64 @@ def test_first_touch_toucher_is_used_and_values_survive() -> None:
     assert kernel.validate(problem, "block").ok
 
 
-def test_the_out_of_tree_stencil_example_meets_the_contract(monkeypatch: pytest.MonkeyPatch) -> None:
-    """docs/examples/binomial_smoother.py, the README's example of adding a stencil."""
+def _load_example(name: str, monkeypatch: pytest.MonkeyPatch):  # type: ignore[no-untyped-def]
     import importlib.util
     from pathlib import Path
 
     import kernels.registry
 
     monkeypatch.setattr(kernels.registry, "_REGISTRY", dict(kernels.registry._REGISTRY))  # leave no trace
-    path = Path(__file__).resolve().parents[1] / "docs" / "examples" / "binomial_smoother.py"
-    spec = importlib.util.spec_from_file_location("binomial_smoother", path)
+    path = Path(__file__).resolve().parents[1] / "docs" / "examples" / f"{name}.py"
+    spec = importlib.util.spec_from_file_location(name, path)
     module = importlib.util.module_from_spec(spec)  # type: ignore[arg-type]
     spec.loader.exec_module(module)  # type: ignore[union-attr]
-    kernel = get_kernel("binomial_smoother")
+    return get_kernel(name)
+
+
+def test_the_out_of_tree_stencil_example_meets_the_contract(monkeypatch: pytest.MonkeyPatch) -> None:
+    """docs/examples/binomial_smoother.py, the README's example of adding a stencil."""
+    kernel = _load_example("binomial_smoother", monkeypatch)
     for check in FAST_CHECKS:
         check(kernel)
     check_layouts(kernel, layouts=("var.z.y.x", "y/2.x/3.var.z.y%2.x%3", "z.y.x.var"), dtypes=("float64",))
+
+
+def test_the_native_c_stencil_example_meets_the_contract(monkeypatch: pytest.MonkeyPatch) -> None:
+    """docs/examples/native_laplacian.c built with cc -O3 -march=native, validated like any kernel,
+    and its output equal to the numba laplacian's to the last bit in float64 (same operation order)."""
+    from kernels.native import c_compiler
+
+    if c_compiler() is None:
+        pytest.skip("no C compiler (looked for $CC, cc, gcc, clang): the native stencil example cannot be built")
+    kernel = _load_example("native_laplacian", monkeypatch)
+    for check in FAST_CHECKS:
+        check(kernel)
+    check_layouts(kernel, layouts=("var.z.y.x", "y/2.x/3.var.z.y%2.x%3", "z.y.x.var", "var.z.y+1.x+8"))
+    numba_kernel = get_kernel("laplacian")
+    for spec in ("var.z.y.x", "y.x.z.var"):
+        mine, theirs = kernel.make_problem(spec, GRID), numba_kernel.make_problem(spec, GRID)
+        kernel.bind(mine, "cyclic")()
+        numba_kernel.bind(theirs, "block")()
+        assert np.array_equal(mine.output.to_logical(), theirs.output.to_logical())
+    report = vector_report(kernel.walk, kernel.bind(kernel.make_problem("var.z.y.x", GRID), "block").args)
+    assert report["packed_fp_ops"] > 0  # the disassembled library function, not the numba wrapper
+
+
+def test_a_native_library_that_is_missing_or_incomplete_is_a_clear_error(tmp_path) -> None:  # type: ignore[no-untyped-def]
+    from kernels.native import c_compiler, compile_c, native_walk
+
+    with pytest.raises(KernelError, match="cannot load native library"):
+        native_walk(tmp_path / "absent.so", "anything")
+    if c_compiler() is None:
+        pytest.skip("no C compiler to build an incomplete library")
+    source = tmp_path / "half.c"
+    source.write_text("void half_f64(void) {}\n")
+    with pytest.raises(KernelError, match="no function 'half_f32'"):
+        native_walk(compile_c(source), "half")
+    broken = tmp_path / "broken.c"
+    broken.write_text("this is not C\n")
+    with pytest.raises(KernelError, match="could not build"):
+        compile_c(broken)
 
 
 @pytest.mark.parametrize("bad", ["convert", "triad", "Lap", "a|b", "9point", ""])

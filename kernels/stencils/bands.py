@@ -33,6 +33,18 @@ def has_band_form(state: State) -> bool:
     return (last.axis, last.part) == ("x", WITHIN) and "y" in layout.tiles
 
 
+def axis_offsets(state: State, axis: str) -> np.ndarray:
+    """Element offset contributed by each logical index along a horizontal axis."""
+    n = state.extents[axis]
+    idx = np.arange(n)
+    elem = np.array(state.data.strides) // state.data.itemsize
+    out = np.zeros(n, dtype=np.int64)
+    for pos, tok in enumerate(state.layout.tokens):
+        if tok.axis == axis:
+            out += tok.logical_index(idx).astype(np.int64) * elem[pos]
+    return out
+
+
 @dataclass(frozen=True)
 class BandGeometry:
     """What the compiled band walk needs about one state's layout, as int64 arrays."""
@@ -46,8 +58,6 @@ class BandGeometry:
 
 def band_geometry(state: State, halo: int) -> BandGeometry:
     """Band-walk description of a state whose layout ``has_band_form``."""
-    from kernels.stencils.common import _axis_offsets
-
     elem = [s // state.data.itemsize for s in state.data.strides]
     outer = []
     for pos, tok in enumerate(state.layout.tokens):
@@ -61,10 +71,10 @@ def band_geometry(state: State, halo: int) -> BandGeometry:
     while len(outer) < 4:
         outer.insert(0, (1, 0, 0))
     col = lambda k: np.array([a[k] for a in outer], dtype=np.int64)  # noqa: E731
-    yo = _axis_offsets(state, "y")
+    yo = axis_offsets(state, "y")
     ny, tile_x = yo.shape[0], state.layout.tiles["x"]
     return BandGeometry(
-        col(0), col(1), col(2), yo[np.arange(-halo, ny + halo) % ny].astype(np.int64), _axis_offsets(state, "x")[::tile_x].astype(np.int64)
+        col(0), col(1), col(2), yo[np.arange(-halo, ny + halo) % ny].astype(np.int64), axis_offsets(state, "x")[::tile_x].astype(np.int64)
     )
 
 

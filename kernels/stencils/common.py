@@ -24,7 +24,7 @@ from kernels.jit import Compiled, build, inline
 from kernels.layout import TILES
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.state import State
-from kernels.stencils.bands import band_geometry, band_walk, has_band_form, scratch_offsets
+from kernels.stencils.bands import axis_offsets, band_geometry, band_walk, has_band_form, scratch_offsets
 
 NDIM = 6  # rows are walked as a 6-axis nest (axes of count 1 pad shorter layouts)
 
@@ -46,18 +46,6 @@ class RowGeometry:
     dy: np.ndarray  # (2*halo+1, ny): offset(j+o) - offset(j), periodic, for o in -halo..halo
     dx: np.ndarray  # (2*halo+1, nx)
     edge: int  # elements at each row end handled per element (0 when the row is not horizontal)
-
-
-def _axis_offsets(state: State, axis: str) -> np.ndarray:
-    """Element offset contributed by each logical index along a horizontal axis."""
-    n = state.extents[axis]
-    idx = np.arange(n)
-    elem = np.array(state.data.strides) // state.data.itemsize
-    out = np.zeros(n, dtype=np.int64)
-    for pos, tok in enumerate(state.layout.tokens):
-        if tok.axis == axis:
-            out += tok.logical_index(idx).astype(np.int64) * elem[pos]
-    return out
 
 
 def _displacements(offsets: np.ndarray, halo: int) -> np.ndarray:
@@ -92,8 +80,8 @@ def row_geometry(state: State, halo: int, merge_vertical: bool, zero_var_stride:
         strides=as_i64(1),
         jmul=as_i64(2),
         imul=as_i64(3),
-        dy=_displacements(_axis_offsets(state, "y"), halo),
-        dx=_displacements(_axis_offsets(state, "x"), halo),
+        dy=_displacements(axis_offsets(state, "y"), halo),
+        dx=_displacements(axis_offsets(state, "x"), halo),
         edge=0 if axes[-1][4] else halo,
     )
 
@@ -243,7 +231,7 @@ class Stencil(Kernel):
 
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         fields = problem.fields
-        if self.companion is None and len(fields) == 1 and has_band_form(fields["q"]):
+        if self.walk.native is None and self.companion is None and len(fields) == 1 and has_band_form(fields["q"]):
             return self._band_implementation(problem, schedule)
         g = row_geometry(fields["q"], self.halo, self.merge_vertical)
         w = g if self.companion is None else row_geometry(fields[self.companion], self.halo, False, zero_var_stride=True)
