@@ -86,6 +86,12 @@ def caches() -> list[dict[str, Any]]:
     return out
 
 
+def private_cache_bytes(level: int = 2) -> int | None:
+    """Size of CPU 0's unified or data cache of ``level`` (None if the OS does not say)."""
+    sizes = [c["bytes"] for c in caches() if c["level"] == level and c["bytes"] and c["type"] in ("Unified", "Data")]
+    return min(sizes) if sizes else None
+
+
 def last_level_cache_bytes() -> int | None:
     sizes = [c["bytes"] for c in caches() if c["bytes"] and c["type"] in ("Unified", "Data")]
     return max(sizes) if sizes else None

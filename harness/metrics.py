@@ -136,3 +136,16 @@ def ranked_figures(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFr
     out["roof_gbps"] = roof_gbps
     out["above_roof"] = [bool(np.isfinite(r.value) and r.value > 100.0) for r in roof]
     return out
+
+
+#: A layout outside tier 1 whose best schedule moves its compulsory bytes at under this share of
+#: the roof (upper end of the interval) is labelled schedule-limited: every layout of a kernel has
+#: the same byte model, so its gap to tier 1 is not its memory traffic but the code that ran.
+SCHEDULE_LIMITED_PCT = 50.0
+
+
+def schedule_limited(frame: pd.DataFrame) -> list[bool]:
+    """Per ranked entry: outside tier 1 and below ``SCHEDULE_LIMITED_PCT`` of the roof with confidence."""
+    top = frame["tier"].min() if frame["tier"].notna().any() else None
+    return [bool(top is not None and tier > top and np.isfinite(hi) and hi < SCHEDULE_LIMITED_PCT)
+            for tier, hi in zip(frame["tier"], frame["pct_roof_hi"])]

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from harness.cases import ARROW, CONVERT, CaseKey, Group
+from harness.cases import ARROW, CONVERT, CaseKey, CaseKind, Group
 from harness.suite import Suite
 from kernels.grid import Extents
 from kernels.registry import all_kernels
@@ -66,3 +66,30 @@ def group_bytes(group: Group) -> int:
     sizes = [kernel.footprint(layout, extents, group.dtype) for layout in layouts]
     logical = kernel.footprint("var.z.y.x", extents, "float64")
     return sum(sizes) + 2 * logical + 3 * max(sizes)  # + up to three triad probes
+
+
+def working_set_warnings(groups: list[Group], suite: Suite, l2_bytes: int | None) -> list[str]:
+    """One line per (kernel, schedule, grid, dtype) whose per-thread working set exceeds L2."""
+    from kernels.base import Schedule
+    from kernels.registry import get_kernel
+
+    if not l2_bytes:
+        return []
+    options, seen, lines = dict(suite.kernel_options), set(), []
+    for group in groups:
+        for case in group.cases:
+            key = (case.kernel, case.schedule, case.grid, case.dtype)
+            if group.kind != CaseKind.KERNEL or key in seen:
+                continue
+            seen.add(key)
+            kernel = get_kernel(case.kernel)
+            schedule = kernel.schedule(case.schedule)
+            if case.kernel in options and schedule.params:
+                given = dict(options[case.kernel])
+                schedule = Schedule(schedule.name, schedule.summary, tuple((k, given.get(k, v)) for k, v in schedule.params))
+            need = kernel.thread_working_set(Extents.parse(case.grid), case.dtype, schedule)
+            if need and need > l2_bytes:
+                lines.append(f"{case.kernel}/{case.schedule} at {case.grid} {case.dtype}: a thread's working set is about "
+                             f"{need / 1024:.0f} KiB, above this machine's {l2_bytes / 1024:.0f} KiB L2; its timing includes L2 misses"
+                             + (" (a smaller strip_width in kernels.options fits)" if dict(schedule.params).get("width") else ""))
+    return lines

@@ -181,6 +181,7 @@ def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | N
     frame["rank"] = np.arange(1, len(frame) + 1)
     key = rounds.name if rounds is not None else ""
     frame = frame.assign(**metrics.ranked_figures(frame, rounds, probes, options.reference, key, options.confidence))
+    frame["schedule_limited"] = metrics.schedule_limited(frame)
     return frame.drop(columns=["traffic_bytes", "flops", "footprint_bytes"])
 
 

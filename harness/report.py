@@ -10,7 +10,7 @@ import pandas as pd
 from tabulate import tabulate
 
 from harness.intervals import Interval
-from harness.metrics import OVERHEAD_MULTIPLE
+from harness.metrics import OVERHEAD_MULTIPLE, SCHEDULE_LIMITED_PCT
 from harness.rank import Ranking
 from harness.report_parts import failed_section, fmt_interval, fmt_number, mix_section, repetition_section, scaling_section
 from harness.store import RunMetadata, recorded_false
@@ -26,6 +26,9 @@ FLAG_NOTES = {
     "overhead-bound": f"`overhead-bound`: the median is under {OVERHEAD_MULTIPLE:g}x the empty kernel's dispatch and "
                       "fork/join time.",
     "scalar": "`scalar`: the compiled loop has no packed vector instructions.",
+    "schedule-limited": "`schedule-limited`: outside tier 1, and even the upper end of its `% roof` interval is under "
+                        f"{SCHEDULE_LIMITED_PCT:g}%: every layout moves the same compulsory bytes, so this gap is the code that "
+                        "ran for the order (its best schedule), not the order's memory traffic; a better schedule may close it.",
 }
 
 
@@ -131,6 +134,8 @@ def _group_table(grp: pd.DataFrame) -> tuple[str, list[str]]:
             flags.append("scalar")
         if e.get("above_roof"):
             flags.append(">roof")
+        if e.get("schedule_limited"):
+            flags.append("schedule-limited")
         used += flags
         rows.append([
             int(e["rank"]), fmt_number(e["tier"], ".0f"), e["layout"], e["schedule"], fmt_interval(e, "reported_median_ns", ".4g", 1e-6),
@@ -201,7 +206,7 @@ EXPORT_COLUMNS = [
     "pct_roof", "pct_roof_lo", "pct_roof_hi", "above_roof", "gflops",
     "time_vs_best", "time_vs_best_lo", "time_vs_best_hi",
     "speedup_vs_reference", "speedup_vs_reference_lo", "speedup_vs_reference_hi",
-    "overhead_bound", "vectorised", "plain", "rounds",
+    "overhead_bound", "schedule_limited", "vectorised", "plain", "rounds",
 ]
 SCALING_EXPORT = ["speedup", "speedup_lo", "speedup_hi", "efficiency", "efficiency_lo", "efficiency_hi"]
 

@@ -13,7 +13,7 @@ from typing import Any
 
 from harness import machine
 from harness.cases import CaseKind, Group, of_kind
-from harness.plan import group_bytes, plan
+from harness.plan import group_bytes, plan, working_set_warnings
 from harness.processes import EXIT_INTERRUPTED, StopRequest, environment
 from kernels.errors import StridewiseError
 from harness.store import RunMetadata, RunStore, RunStoreError
@@ -100,6 +100,8 @@ def run_sweep(
                   f"raised to {count}, and its threads will share cores", file=sys.stderr)
     groups = plan(suite, counts)
     check_memory(groups, suite)
+    for line in working_set_warnings(groups, suite, machine.private_cache_bytes(2)):
+        print(f"stridewise: warning: {line}", file=sys.stderr)
     gov = machine.governor_warning(fingerprint["cpufreq"])
     if gov:
         print(f"stridewise: warning: {gov}", file=sys.stderr)

@@ -189,6 +189,10 @@ class Kernel(ABC):
         elements = extents.points + sum(s.points if isinstance(s, Extents) else s for s in self.input_shapes(extents).values())
         return elements * check_dtype(dtype).itemsize
 
+    def thread_working_set(self, extents: Extents, dtype: Any, schedule: Schedule) -> int | None:
+        """Bytes one thread keeps live while it works on one item of ``schedule`` (None: no model)."""
+        return None
+
     @abstractmethod
     def tolerance(self, dtype: Any) -> float:
         """Largest accepted ``max|out - ref| / max|ref|``."""

@@ -45,7 +45,50 @@ def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_
                     dst[np.uintp(rb + i5)] = src[np.uintp(s)]
 
 
+def transpose_blocks(src, dst, n, ss, ds, axes, same, bs, buf, nchunks):  # type: ignore[no-untyped-def]
+    """Copy between two untiled layouts: logical extents n, element strides per logical axis ss
+    (src) and ds (dst); axes = (a, b, c, e) with a the destination's contiguous axis, b the
+    source's, c and e the rest in the destination's order. Blocks of bs x bs over (a, b) are read
+    along b into per-thread scratch buf (threads, bs, bs) and written along a. ``same``: both are
+    contiguous along a, and b is the third outer axis: each item copies one whole run."""
+    a, b, c, e = axes[0], axes[1], axes[2], axes[3]
+    na, nb = n[a], n[b]
+    nba = 1 if same else (na + bs - 1) // bs
+    nbb = nb if same else (nb + bs - 1) // bs
+    nitems = n[c] * n[e] * nba * nbb
+    u = np.uintp
+    for t in prange(nchunks):
+        lo, hi = chunk(nitems, nchunks, t)
+        for item in range(lo, hi):
+            blk_b = item % nbb
+            r = item // nbb
+            blk_a = r % nba
+            r = r // nba
+            ie = r % n[e]
+            ic = r // n[e]
+            sbase, dbase = ic * ss[c] + ie * ss[e], ic * ds[c] + ie * ds[e]
+            if same:
+                s0, d0 = sbase + blk_b * ss[b], dbase + blk_b * ds[b]
+                for ia in range(na):
+                    dst[u(d0 + ia)] = src[u(s0 + ia)]
+                continue
+            a0, a1 = blk_a * bs, min(blk_a * bs + bs, na)
+            b0, b1 = blk_b * bs, min(blk_b * bs + bs, nb)
+            for ia in range(a0, a1):  # read rows along b (contiguous in src)
+                s0 = sbase + ia * ss[a]
+                for ib in range(b0, b1):
+                    buf[t, u(ia - a0), u(ib - b0)] = src[u(s0 + ib)]
+            for ib in range(b0, b1):  # write rows along a (contiguous in dst)
+                d0 = dbase + ib * ds[b]
+                for ia in range(a0, a1):
+                    dst[u(d0 + ia)] = buf[t, u(ia - a0), u(ib - b0)]
+
+
 CONVERT = build(convert_rows)
+TRANSPOSE = build(transpose_blocks)
+
+#: Side of the square blocks of the blocked transpose (elements).
+TRANSPOSE_BLOCK = 32
 
 
 def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
@@ -54,6 +97,8 @@ def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
         from kernels.errors import KernelError
 
         raise KernelError(f"cannot convert {src} into {dst}: extents and dtype must match")
+    if not (src.layout.is_tiled or dst.layout.is_tiled):
+        return _transpose_args(src, dst)
     elem = [s // dst.data.itemsize for s in dst.data.strides]
     axes = []
     for pos, tok in enumerate(dst.layout.tokens):
@@ -76,3 +121,23 @@ def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
     row_axis = LOGICAL_AXES.index(dst.layout.tokens[-1].axis)
     args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, *mul, tables, row_axis, thread_count())
     return CONVERT, args
+
+
+def _axis_strides(state: State) -> np.ndarray:
+    """Element stride of each logical axis (var, z, y, x) of an untiled state."""
+    elem = [st // state.data.itemsize for st in state.data.strides]
+    return np.array([elem[state.layout.index_of(axis)] for axis in LOGICAL_AXES], dtype=np.int64)
+
+
+def _transpose_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
+    """The blocked transpose between two untiled layouts, outer axes in the destination's order."""
+    inner_d, inner_s = (LOGICAL_AXES.index(st.layout.tokens[-1].axis) for st in (dst, src))
+    others = [LOGICAL_AXES.index(t.axis) for t in dst.layout.tokens[:-1] if LOGICAL_AXES.index(t.axis) != inner_s]
+    same = inner_d == inner_s
+    if same:  # the innermost outer axis of dst takes the role of b
+        inner_s = others.pop()
+    n = np.array(src.extents.shape, dtype=np.int64)
+    buf = np.zeros((thread_count(), TRANSPOSE_BLOCK, TRANSPOSE_BLOCK), src.dtype)
+    axes = np.array((inner_d, inner_s, *others), dtype=np.int64)
+    args = (src.data.reshape(-1), dst.data.reshape(-1), n, _axis_strides(src), _axis_strides(dst), axes, same, TRANSPOSE_BLOCK, buf, thread_count())
+    return TRANSPOSE, args

@@ -22,12 +22,15 @@ class Broken(Laplacian):
     name = "broken"
     schedules = (BLOCK, WRONG)
 
+    wrong = False
+
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
-        impl, args = super().implementation(problem, BLOCK)
-        if schedule.name == "wrong":
-            four, scale = args[13]  # the walk's constants: (4, 1/h^2)
-            args = args[:13] + ((four, scale * 2),) + args[14:]
-        return impl, args
+        self.wrong = schedule.name == "wrong"  # read by constants() while the walk's arguments are built
+        return super().implementation(problem, BLOCK)
+
+    def constants(self, dtype: Any) -> tuple[Any, ...]:
+        four, scale = super().constants(dtype)
+        return (four, scale * 2) if self.wrong else (four, scale)
 
 
 class _Repeated:

@@ -60,3 +60,25 @@ def test_mismatched_states_are_refused() -> None:
         conversion_args(a, State.zeros("var.z.y.x", Extents(1, 2, 3, 5)))
     with pytest.raises(KernelError, match="extents and dtype must match"):
         conversion_args(a, State.zeros("var.z.y.x", Extents(1, 2, 3, 4), "float32"))
+
+
+@pytest.mark.parametrize(
+    "pair",
+    [("var.z.y.x", "y.x.z.var"), ("var.z.y.x", "var.y.x.z"), ("y.x.z.var", "var.z.y+1.x+8"), ("var.z.y.x", "z.var.y.x"), ("x.y.z.var", "var+1.z.y.x")],
+)
+def test_blocked_transpose_spans_several_blocks(pair: tuple[str, str]) -> None:
+    """Untiled pairs take the blocked transpose; extents above its block size exercise whole,
+    partial and same-axis blocks. Source: NumPy's reshape and transpose, bit for bit."""
+    from kernels.convert import TRANSPOSE, TRANSPOSE_BLOCK
+    from kernels.notation import parse_layout
+
+    ext = Extents(var=3, z=5, y=TRANSPOSE_BLOCK + 7, x=2 * TRANSPOSE_BLOCK + 3)
+    values = np.random.default_rng(1).standard_normal(ext.shape)
+    src = State.from_logical(values, parse_layout(pair[0]))
+    dst = State.zeros(parse_layout(pair[1]), ext, "float64")
+    impl, args = conversion_args(src, dst)
+    assert impl is TRANSPOSE
+    impl.parallel(*args)
+    expected = np.ascontiguousarray(numpy_physical(values, dst.layout))
+    interior = tuple(slice(0, n) for n in dst.layout.counts(ext))
+    assert np.array_equal(dst.data[interior], expected)

@@ -204,3 +204,17 @@ def test_report_says_when_rounds_are_too_few_to_separate() -> None:
     ranking = _ranking(cases, samples)
     assert "Too few rounds" not in render_markdown(ranking)
     assert list(ranking.table["tier"]) == [1, 2, 3]
+
+
+def test_schedule_limited_marks_only_losers_far_below_the_roof() -> None:
+    """Common practice (no source): a loser whose compulsory bytes move at under half the roof,
+    with confidence, lost to its code, not to its memory traffic (the byte model is shared)."""
+    from harness.metrics import SCHEDULE_LIMITED_PCT, schedule_limited
+
+    frame = pd.DataFrame({
+        "tier": [1, 1, 2, 2, 3, 3],
+        "pct_roof_hi": [20.0, 30.0, SCHEDULE_LIMITED_PCT - 1, SCHEDULE_LIMITED_PCT + 1, np.nan, 10.0],
+    })
+    # tier 1 is never flagged however slow; unknown roof share is never flagged
+    assert schedule_limited(frame) == [False, False, True, False, False, True]
+    assert schedule_limited(frame.assign(tier=np.nan)) == [False] * 6

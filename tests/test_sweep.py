@@ -338,3 +338,20 @@ def test_a_roof_curve_larger_than_memory_is_refused(monkeypatch: pytest.MonkeyPa
         check_memory([], suite)
     check_memory([], parse_suite({"kernels": {"select": ["laplacian"]}, "timing": {"roof_max_bytes": 1 << 30}}))
     check_memory([], parse_suite({"kernels": {"select": ["laplacian"]}, "timing": {"roof_max_bytes": 8 << 30, "roof": False}}))
+
+
+def test_a_strip_wider_than_l2_is_warned_about_and_a_narrower_one_is_not() -> None:
+    """Closed form: varcoef's strip of 128 columns at 137 levels keeps a, b, c, d, x and c' live,
+    6 x 137 x 128 x 8 B = 822 KiB, above a 512 KiB L2; a strip of 32 (206 KiB) and one column fit."""
+    import tomllib
+
+    from harness.plan import plan, working_set_warnings
+    from harness.suite import parse_suite
+
+    text = "[grid]\nsizes = ['var=2,z=137,y=8,x=8']\n[kernels]\nselect = ['varcoef', 'laplacian']\n[threads]\ncounts = [1]\n"
+    suite = parse_suite(tomllib.loads(text), "l2")
+    lines = working_set_warnings(plan(suite, [1]), suite, 512 * 1024)
+    assert len(lines) == 1 and lines[0].startswith("varcoef/strip") and "822 KiB" in lines[0]
+    narrow = parse_suite(tomllib.loads(text + "[kernels.options]\nvarcoef = { strip_width = 32 }\n"), "l2")
+    assert working_set_warnings(plan(narrow, [1]), narrow, 512 * 1024) == []
+    assert working_set_warnings(plan(suite, [1]), suite, None) == []

@@ -170,7 +170,7 @@ class ColumnSolve(Kernel):
     """
 
     family = "columns"
-    schedules = (COLUMN, STRIP)
+    schedules = (COLUMN, STRIP, PAIRED)
 
     def factorised_systems(self, extents: Extents) -> int:
         """How many distinct matrices one call factorises (each right-hand side is solved once)."""
@@ -188,3 +188,9 @@ class ColumnSolve(Kernel):
 
     def tolerance(self, dtype: Any) -> float:
         return column_tolerance(dtype)
+
+    def thread_working_set(self, extents: Extents, dtype: Any, schedule: Schedule) -> int | None:
+        """Columns in flight (1, 2 or the strip width) x levels x (3-D inputs + output + one scratch row)."""
+        columns = {"column": 1, "pairs": 2}.get(schedule.name) or schedule.param("width", STRIP_WIDTH)
+        fields = sum(isinstance(v, Extents) for v in self.input_shapes(extents).values()) + 2
+        return columns * extents.z * fields * np.dtype(dtype).itemsize

@@ -12,7 +12,7 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import COLUMN, PAIRED, STRIP, ColumnSolve, STRIP_WIDTH, column_at, column_view, diffusion_coefficients, interface_diffusivity, right_hand_side
+from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_at, column_view, diffusion_coefficients, interface_diffusivity, right_hand_side
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
 from kernels.parallel import chunk, thread_count
@@ -107,7 +107,6 @@ PAIRS = build(solve_pairs)
 class LevelCoef(ColumnSolve):
     name = "levelcoef"
     summary = "tridiagonal solve per (variable, column); a, b, c per level only (1-D), d 3-D"
-    schedules = (COLUMN, STRIP, PAIRED)
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
         return {"a": extents.z, "b": extents.z, "c": extents.z, "d": extents}

@@ -12,7 +12,7 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import COLUMN, PAIRED, STRIP, ColumnSolve, STRIP_WIDTH, column_at, column_view, field_coefficient_inputs
+from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_at, column_view, field_coefficient_inputs
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, thread_count
@@ -113,7 +113,6 @@ class VarCoef(ColumnSolve):
     name = "varcoef"
     summary = "tridiagonal solve per (variable, column); a, b, c, d all 3-D fields"
     padding_value = {"b": 1.0}  # padded columns solve x = d = 0 instead of dividing by zero
-    schedules = (COLUMN, STRIP, PAIRED)
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
         return {k: extents for k in "abcd"}
