@@ -20,10 +20,11 @@ from kernels.state import State
 NDIM = 6
 
 
-def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_axis, nchunks):  # type: ignore[no-untyped-def]
+def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_axis, extents, nchunks):  # type: ignore[no-untyped-def]
     """dst axes: counts/strides (6); mulA[d]: step of logical axis A (var, z, y, x) per index of dst axis d;
     tables[a, n]: source element offset of logical index n along axis a (padded with zeros);
-    row_axis: the logical axis that dst's innermost axis runs along."""
+    row_axis: the logical axis that dst's innermost axis runs along; extents: the logical extents
+    (rows and row ends in the unused part of a partial last tile are skipped)."""
     n4, n5 = counts[4], counts[5]
     step = (mul0[5], mul1[5], mul2[5], mul3[5])[row_axis]
     nitems = counts[0] * counts[1] * counts[2] * counts[3]
@@ -37,10 +38,13 @@ def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_
             for i4 in range(n4):
                 rb = base + i4 * strides[4]
                 a0, a1, a2, a3 = c0 + i4 * mul0[4], c1 + i4 * mul1[4], c2 + i4 * mul2[4], c3 + i4 * mul3[4]
+                if a0 >= extents[0] or a1 >= extents[1] or a2 >= extents[2] or a3 >= extents[3]:
+                    continue
                 total = tables[0, a0] + tables[1, a1] + tables[2, a2] + tables[3, a3]
                 start = a0 if row_axis == 0 else a1 if row_axis == 1 else a2 if row_axis == 2 else a3
                 others = total - tables[row_axis, start]  # only the row's own axis moves along the row
-                for i5 in range(n5):
+                nrow = min(n5, (extents[row_axis] - start + step - 1) // step)
+                for i5 in range(nrow):
                     s = others + tables[row_axis, start + i5 * step]
                     dst[np.uintp(rb + i5)] = src[np.uintp(s)]
 
@@ -119,7 +123,8 @@ def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
             if tok.axis == axis:
                 tables[k, : idx.size] += tok.logical_index(idx) * src_elem[pos]
     row_axis = LOGICAL_AXES.index(dst.layout.tokens[-1].axis)
-    args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, *mul, tables, row_axis, thread_count())
+    extents = np.array(src.extents.shape, dtype=np.int64)
+    args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, *mul, tables, row_axis, extents, thread_count())
     return CONVERT, args
 
 

@@ -41,10 +41,10 @@ class Token:
         return f"{name}+{self.pad}" if self.pad else name
 
     def count(self, extents: Extents) -> int:
-        """Logical (unpadded) extent of this physical axis."""
+        """Logical (unpadded) extent of this physical axis; a last, partial tile counts as a tile."""
         n = extents[self.axis]
         if self.part == TILES:
-            return n // self.tile
+            return -(-n // self.tile)
         if self.part == WITHIN:
             return self.tile
         return n
@@ -138,11 +138,15 @@ class Layout:
         """Raise LayoutError if the layout cannot hold a grid of these extents."""
         for axis, tile in self._tiles.items():
             n = extents[axis]
-            if n % tile:
+            if tile > n:
                 raise LayoutError(
-                    f"tile size {tile} does not divide extent {n} of axis '{axis}' in layout "
-                    f"'{self.spec}'; valid tile sizes divide {n}"
+                    f"tile size {tile} exceeds extent {n} of axis '{axis}' in layout '{self.spec}'; "
+                    f"valid tile sizes are 1..{n} (a tile that does not divide {n} leaves a partial last tile)"
                 )
+
+    def remainder(self, extents: Extents) -> dict[str, int]:
+        """Unused positions in the last tile of each tiled axis whose tile does not divide the extent."""
+        return {axis: -extents[axis] % tile for axis, tile in self._tiles.items() if extents[axis] % tile}
 
     def counts(self, extents: Extents) -> tuple[int, ...]:
         """Logical (unpadded) extent of each physical axis."""
@@ -201,6 +205,8 @@ class Layout:
             "strides_bytes": self.strides(extents, dt),
             "bytes": self.nbytes(extents, dt),
             "padding_bytes": self.nbytes(extents, dt) - extents.points * dt.itemsize,
+            "partial_tiles": {axis: f"last tile holds {tile - left} of {tile}" for axis, left in self.remainder(extents).items()
+                              for tile in (self._tiles[axis],)},
             "contiguous": ".".join(self.contiguous_tokens(extents)),
             "alignment": ALIGNMENT,
             "base_offset": self.base_offset,

@@ -84,7 +84,7 @@ class State:
         for axis in LOGICAL_AXES:
             n = self.extents[axis]
             tile = self.layout.tiles.get(axis)
-            out.extend((n // tile, tile) if tile else (n,))
+            out.extend((-(-n // tile), tile) if tile else (n,))
         return tuple(out)
 
     def _split_positions(self) -> list[int]:
@@ -110,15 +110,28 @@ class State:
         return self.interior().transpose(np.argsort(self._split_positions()))
 
     # -- conversion -----------------------------------------------------------------------
+    def _covered_shape(self) -> tuple[int, ...]:
+        """Logical shape rounded up to whole tiles (the extents when no tile is partial)."""
+        tiles = self.layout.tiles
+        return tuple(-(-n // tiles[a]) * tiles[a] if a in tiles else n for a, n in zip(LOGICAL_AXES, self.extents.shape))
+
     def to_logical(self) -> np.ndarray:
         """A new C-contiguous logical ``(var, z, y, x)`` array (exact copy of the values)."""
-        return np.ascontiguousarray(self.split_view()).reshape(self.extents.shape)
+        covered = np.ascontiguousarray(self.split_view()).reshape(self._covered_shape())
+        if covered.shape == self.extents.shape:
+            return covered
+        return np.ascontiguousarray(covered[tuple(slice(0, n) for n in self.extents.shape)])
 
     def assign_logical(self, values: np.ndarray) -> None:
         """Overwrite every logical value from a ``(var, z, y, x)`` array; padding is untouched."""
         values = np.asarray(values)
         if values.shape != self.extents.shape:
             raise LayoutError(f"logical array of shape {values.shape} does not match extents {self.extents}")
+        covered = self._covered_shape()
+        if covered != self.extents.shape:  # partial tiles: keep what the unused positions hold
+            whole = np.ascontiguousarray(self.split_view()).reshape(covered).astype(values.dtype, copy=False)
+            whole[tuple(slice(0, n) for n in self.extents.shape)] = values
+            values = whole
         split = values.reshape(self._split_shape())
         self.interior()[...] = split.transpose(self._split_positions())
 

@@ -68,7 +68,9 @@ def test_mismatched_states_are_refused() -> None:
 )
 def test_blocked_transpose_spans_several_blocks(pair: tuple[str, str]) -> None:
     """Untiled pairs take the blocked transpose; extents above its block size exercise whole,
-    partial and same-axis blocks. Source: NumPy's reshape and transpose, bit for bit."""
+    partial and same-axis blocks.
+
+    Source: NumPy's reshape and transpose build the expected physical array, bit for bit."""
     from kernels.convert import TRANSPOSE, TRANSPOSE_BLOCK
     from kernels.notation import parse_layout
 

@@ -121,9 +121,24 @@ def test_bad_specs_name_the_token(spec: str, named: str) -> None:
     assert "\n" not in str(info.value)
 
 
-def test_tile_must_divide_extent() -> None:
-    with pytest.raises(LayoutError, match=r"tile size 5 does not divide extent 128 of axis 'y'"):
-        parse_layout("y/5.x/8.var.z.y%5.x%8").shape(Extents(4, 8, 128, 128))
+def test_a_tile_larger_than_its_extent_is_refused() -> None:
+    with pytest.raises(LayoutError, match=r"tile size 16 exceeds extent 10 of axis 'x'.*valid tile sizes are 1..10"):
+        parse_layout("y/5.x/16.var.z.y%5.x%16").shape(Extents(4, 8, 128, 10))
+
+
+def test_a_tile_that_does_not_divide_its_extent_leaves_a_partial_last_tile() -> None:
+    """Closed form: y=25 in tiles of 8 takes ceil(25/8) = 4 tiles, the last holding 25 - 24 = 1 row."""
+    layout, ext = parse_layout("y/8.x/10.var.z.y%8.x%10"), Extents(2, 3, 25, 50)
+    assert layout.shape(ext) == (4, 5, 2, 3, 8, 10)
+    assert layout.remainder(ext) == {"y": 7}
+    assert layout.describe(ext, "float64")["partial_tiles"] == {"y": "last tile holds 1 of 8"}
+    values = np.random.default_rng(3).standard_normal(ext.shape)
+    state = State.from_logical(values, layout)
+    assert np.array_equal(state.to_logical(), values)
+    # Source: NumPy indexing. Logical (v, k, j, i) sits at tile (j // 8, i // 10), position (j % 8, i % 10).
+    v, k, j, i = 1, 2, 24, 37
+    assert state.data[j // 8, i // 10, v, k, j % 8, i % 10] == values[v, k, j, i]
+    assert np.all(state.data[3, :, :, :, 1:, :] == 0)  # the unused rows of the last tile stay as allocated
 
 
 @pytest.mark.parametrize("axis", ["var", "z", "y", "x"])

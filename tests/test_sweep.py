@@ -100,7 +100,9 @@ def test_wrong_schedule_is_recorded_failed_and_never_timed(tmp_path: Path) -> No
 
 @pytest.mark.slow
 def test_interrupt_then_resume_completes_the_same_case_set(tmp_path: Path) -> None:
-    suite = _suite(tmp_path, '["levelcoef", "sharedcoef", "varcoef", "laplacian", "hyperdiffusion", "advection"]', repeats=40)
+    # Three kernels: enough groups to stop between them, and the
+    # resumed sweep compiles only their specialisations (the CI run starts from a cold cache).
+    suite = _suite(tmp_path, '["levelcoef", "laplacian", "advection"]', repeats=40)
     out = tmp_path / "run"
     proc = subprocess.Popen(
         [sys.executable, "-m", "harness", "sweep", "--quiet", str(suite), "--out", str(out)],

@@ -70,6 +70,7 @@ def run(args: argparse.Namespace) -> int:
                 "strides_bytes": d["strides_bytes"],
                 "MiB": d["bytes"] / 2**20,
                 "padding_bytes": d["padding_bytes"],
+                "partial_tiles": "; ".join(f"{axis}: {text}" for axis, text in d["partial_tiles"].items()) or "none",
                 "contiguous": d["contiguous"],
                 "base_offset": d["base_offset"],
             }

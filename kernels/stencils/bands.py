@@ -78,10 +78,11 @@ def band_geometry(state: State, halo: int) -> BandGeometry:
     )
 
 
-def _band_walk(q, out, extra, counts, strides, jmul, yoff, runs, tile_y, tile_x, halo, sdy, sdx, qs, os, consts, nchunks, cyclic):  # type: ignore[no-untyped-def]
-    """Template of the band walk; ``band_walk`` binds ``_offsets`` and ``_point``."""
+def _band_walk(q, out, extra, counts, strides, jmul, yoff, runs, nx, tile_y, tile_x, halo, sdy, sdx, qs, os, consts, nchunks, cyclic):  # type: ignore[no-untyped-def]
+    """Template of the band walk; ``band_walk`` binds ``_offsets`` and ``_point``. A partial last
+    tile (along y or x) gives a shorter band or a shorter last run."""
     nitems = counts[0] * counts[1] * counts[2] * counts[3]
-    nx = runs.shape[0] * tile_x
+    ny = yoff.shape[0] - 2 * halo
     frame = nx + 2 * halo
     u = np.uintp
     for t in prange(nchunks):
@@ -93,24 +94,25 @@ def _band_walk(q, out, extra, counts, strides, jmul, yoff, runs, tile_y, tile_x,
             i0, i1, i2, i3 = unflatten4(item, counts)
             rest = dot4(i0, i1, i2, i3, strides)
             j0 = dot4(i0, i1, i2, i3, jmul)
-            for r in range(tile_y + 2 * halo):  # the band and its halo rows, into scratch
+            rows = min(tile_y, ny - j0)
+            for r in range(rows + 2 * halo):  # the band and its halo rows, into scratch
                 srow = r * frame + halo
                 yo = rest + yoff[j0 + r]
                 for run in range(runs.shape[0]):
                     src, dst = yo + runs[run], srow + run * tile_x
-                    for c in range(tile_x):
+                    for c in range(min(tile_x, nx - run * tile_x)):
                         qt[u(dst + c)] = q[u(src + c)]
                 for c in range(halo):  # periodic in x: the ring repeats the far end of the row
                     qt[u(srow - halo + c)] = qt[u(srow + nx - halo + c)]
                     qt[u(srow + nx + c)] = qt[u(srow + c)]
-            for r in range(tile_y):
+            for r in range(rows):
                 p0 = (r + halo) * frame + halo
                 for c in range(nx):
                     _point(qt, ot, extra, p0 + c, p0 + c, offs, consts)
                 yo = rest + yoff[j0 + halo + r]
                 for run in range(runs.shape[0]):
                     src, dst = p0 + run * tile_x, yo + runs[run]
-                    for c in range(tile_x):
+                    for c in range(min(tile_x, nx - run * tile_x)):
                         out[u(dst + c)] = ot[u(src + c)]
 
 

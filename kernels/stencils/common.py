@@ -130,10 +130,10 @@ _companion_may_stand = False
 
 def _walk(q, out, extra, counts, strides, wstrides, jmul, imul, dy, dx, wdy, wdx, edge, consts, nchunks, cyclic):  # type: ignore[no-untyped-def]
     """Template of every stencil's row walk; ``row_walk`` binds ``_offsets`` and ``_point``."""
-    n4, n5 = counts[4], counts[5]
+    n4 = counts[4]
+    ny, nx = dy.shape[1], dx.shape[1]
     nitems = counts[0] * counts[1] * counts[2] * counts[3]
     tj, ti, wstep = jmul[5], imul[5], wstrides[5]
-    lo_in, hi_in = edge, n5 - edge
     for t in prange(nchunks):
         lo, hi = chunk(nitems, nchunks, t)
         start, stop, step = (t, nitems, nchunks) if cyclic else (lo, hi, 1)
@@ -144,6 +144,10 @@ def _walk(q, out, extra, counts, strides, wstrides, jmul, imul, dy, dx, wdy, wdx
             for i4 in range(n4):
                 rb, wb = base + i4 * strides[4], wbase + i4 * wstrides[4]
                 j, i = j0 + i4 * jmul[4], x0 + i4 * imul[4]
+                if j >= ny or i >= nx:  # a row in the unused part of a partial last tile
+                    continue
+                nrow = row_length(counts[5], j, i, tj, ti, ny, nx)
+                lo_in, hi_in = edge, nrow - edge
                 if hi_in > lo_in:  # the interior: constant displacements, a plain SIMD loop
                     offs = _offsets(dy, dx, wdy, wdx, j + lo_in * tj, i + lo_in * ti)
                     if _companion_may_stand and wstep == 0:  # var innermost: one companion point per row
@@ -152,12 +156,23 @@ def _walk(q, out, extra, counts, strides, wstrides, jmul, imul, dy, dx, wdy, wdx
                     else:
                         for tt in range(lo_in, hi_in):
                             _point(q, out, extra, rb + tt, wb + tt, offs, consts)
-                for tt in range(min(lo_in, n5)):  # row start: a tile edge or the periodic seam
+                for tt in range(min(lo_in, nrow)):  # row start: a tile edge or the periodic seam
                     offs = _offsets(dy, dx, wdy, wdx, j + tt * tj, i + tt * ti)
                     _point(q, out, extra, rb + tt, wb + tt * wstep, offs, consts)
-                for tt in range(max(hi_in, lo_in), n5):  # row end
+                for tt in range(max(hi_in, lo_in), nrow):  # row end
                     offs = _offsets(dy, dx, wdy, wdx, j + tt * tj, i + tt * ti)
                     _point(q, out, extra, rb + tt, wb + tt * wstep, offs, consts)
+
+
+@inline
+def row_length(count, j, i, tj, ti, ny, nx):  # type: ignore[no-untyped-def]
+    """Elements of a row starting at logical (j, i) that lie in the grid (a partial last tile ends early)."""
+    n = count
+    if tj > 0:
+        n = min(n, (ny - j + tj - 1) // tj)
+    if ti > 0:
+        n = min(n, (nx - i + ti - 1) // ti)
+    return n
 
 
 @inline
@@ -251,7 +266,7 @@ class Stencil(Kernel):
         sdy, sdx = scratch_offsets(h, frame)
         scratch = lambda: np.zeros((thread_count(), (ty + 2 * h) * frame), problem.dtype)  # noqa: E731
         args = (
-            q.data.reshape(-1), problem.output.data.reshape(-1), (), g.counts, g.strides, g.jmul, g.yoff, g.runs,
+            q.data.reshape(-1), problem.output.data.reshape(-1), (), g.counts, g.strides, g.jmul, g.yoff, g.runs, problem.extents.x,
             ty, tx, h, sdy, sdx, scratch(), scratch(), self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name),
         )
         return band_walk_of(self.walk), args

@@ -25,7 +25,7 @@ DTYPES = ("float64", "float32")
 #: Small and uneven on purpose: every axis distinct, so a transposed index shows up.
 GRID = Extents(var=3, z=5, y=4, x=6)
 #: Beyond the 24 permutations: tilings with tiles at each depth, padding of outer and inner axes,
-#: a base offset, and tile indices innermost.
+#: a base offset, tile indices innermost, and partial last tiles (3 and 4 divide neither 4 nor 6).
 SPECIAL_LAYOUTS = (
     "y/2.x/3.var.z.y%2.x%3",
     "y/4.x/6.var.z.y%4.x%6+2",
@@ -34,6 +34,7 @@ SPECIAL_LAYOUTS = (
     "y%2.x%3.var.z.y/2.x/3",
     "x/3.y/2.z.x%3+1.var.y%2+2",
     "var.y/2.z.y%2.x",
+    "y/3.x/4.var.z.y%3.x%4",
 )
 LAYOUTS = tuple(p.spec for p in permutations()) + SPECIAL_LAYOUTS
 
