@@ -103,6 +103,11 @@ def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
         raise KernelError(f"cannot convert {src} into {dst}: extents and dtype must match")
     if not (src.layout.is_tiled or dst.layout.is_tiled):
         return _transpose_args(src, dst)
+    return row_conversion_args(src, dst)
+
+
+def row_conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
+    """The row conversion, which serves any pair (tiled included): dst rows, per-element source lookups."""
     elem = [s // dst.data.itemsize for s in dst.data.strides]
     axes = []
     for pos, tok in enumerate(dst.layout.tokens):

@@ -46,7 +46,7 @@ def test_json_and_md(capsys: pytest.CaptureFixture[str]) -> None:
     [
         (["layouts", "--layout", "var.z.q.x"], "'q'"),
         (["layouts", "--grid", "var=0,z=1,y=1,x=1"], "'var'"),
-        (["layouts", "--family", "tilings", "--tiles", "3x8"], "tile size 3"),
+        (["layouts", "--family", "tilings", "--tiles", "3x512"], "tile size 512 exceeds"),
         (["layouts", "--family", "paddings", "--pads", "1,-2"], "-2"),
         (["layouts", "--dtype", "int8"], "int8"),
     ],

@@ -18,8 +18,11 @@ from kernels.testing.strategies import extents, layouts_for
 
 def numpy_physical(values: np.ndarray, layout: Layout) -> np.ndarray:
     """The layout's physical array (padding left out) by NumPy alone: split each tiled axis with
-    ``reshape`` (index // tile, index % tile), then ``transpose`` into the layout's token order."""
+    ``reshape`` (index // tile, index % tile), then ``transpose`` into the layout's token order;
+    a partial last tile's unused positions are zero (as a fresh state holds them)."""
     shape, parts = [], []
+    covered = [-(-n // layout.tiles[a]) * layout.tiles[a] if a in layout.tiles else n for a, n in zip(LOGICAL_AXES, values.shape)]
+    values = np.pad(values, [(0, c - n) for c, n in zip(covered, values.shape)])  # partial tiles: unused positions hold 0
     for axis, n in zip(LOGICAL_AXES, values.shape):
         tile = layout.tiles.get(axis)
         if tile:

@@ -167,7 +167,7 @@ def test_harness_median_agrees_with_timeit() -> None:
         ("[kernels]\nselect = ['laplace']\n", "did you mean 'laplacian'"),
         ("[threads]\ncounts = [0, 2]\n", "threads.counts must be positive"),
         ("[threads]\ncounts = [-1]\n", "threads.counts must be positive"),
-        ("[layouts]\nspecs = ['y/5.x/4.var.z.y%5.x%4']\n[grid]\nsizes=['var=1,z=2,y=16,x=16']\n", "tile size 5"),
+        ("[layouts]\nspecs = ['y/32.x/4.var.z.y%32.x%4']\n[grid]\nsizes=['var=1,z=2,y=16,x=16']\n", "tile size 32 exceeds"),
         ("[layouts]\nspecs = ['var.z.q.x']\n", "'q'"),
         ("[layouts]\nfamilies = [{family = 'paddings', pads = ['a']}]\n", "pads item must be int"),
         ("[layouts]\nfamilies = [{family = 'tilings', tiles = [48]}]\n", "tiles item must be str"),

@@ -93,14 +93,14 @@ def check_input_shapes_and_footprint(kernel: Kernel) -> None:
 
 
 def check_layouts(kernel: Kernel, layouts: Sequence[str] = LAYOUTS, dtypes: Sequence[str] = DTYPES,
-                  extents: Extents = GRID) -> None:
+                  extents: Extents = GRID, builds: Sequence[str] = ("parallel", "serial")) -> None:
     """Every layout, schedule and build (parallel, serial) matches the reference; the empty twin runs."""
     failures = []
     for dtype in dtypes:
         for spec in layouts:
             problem = kernel.make_problem(spec, extents, dtype, seed=3)
             for schedule in kernel.schedules:
-                for build in ("parallel", "serial"):
+                for build in builds:
                     result = kernel.validate(problem, schedule, build)
                     if not result.ok:
                         failures.append(f"{spec} {dtype} {schedule.name} {build}: {result.message}")
