@@ -1,12 +1,12 @@
-"""Stencils compiled outside numba: a C (or Fortran, bind(C)) function in a shared library.
+"""Kernels compiled outside numba: C (or Fortran, bind(C)) functions in a shared library.
 
-The library exports one function per dtype with the row-walk signature below; numba's threads
-call it on each thread's share of the walk, so a native stencil runs under the same layouts,
-schedules, validation, interleaving and reports as a numba one. The walk is the one the numba
-stencils use (``kernels.stencils.common``): the same geometry serves every layout.
+The library exports one function per dtype (``<symbol>_f64`` on ``double``, ``<symbol>_f32`` on
+``float``) with its family's signature below; numba's threads call it on each thread's share of
+the work, so a native kernel runs under the same layouts, schedules, validation, interleaving and
+reports as a numba one.
 
-C signature of the stencil family (``T`` is ``double`` for ``<symbol>_f64``, ``float`` for
-``<symbol>_f32``)::
+Stencils (``native_walk``) take the row walk the numba stencils use (``kernels.stencils.common``),
+so one function serves every layout, tiled and padded included::
 
     void symbol_f64(const T *q, T *out,
                     const int64_t *counts,  /* 6 walked axes, outermost first; the last is the row */
@@ -22,7 +22,20 @@ C signature of the stencil family (``T`` is ``double`` for ``<symbol>_f64``, ``f
 Item ``m`` covers ``counts[4] x counts[5]`` elements; element ``(m, r, e)`` sits at
 ``sum(index * strides)`` and has logical ``y = sum(index * jmul)``, ``x = sum(index * imul)``.
 Its neighbour at ``(y + oy, x + ox)`` sits ``dy[(oy + h) * ny + y] + dx[(ox + h) * nx + x]``
-elements away (periodic wrap included).
+elements away (periodic wrap included). Rows or row ends past a partial last tile are not in the
+grid: skip rows whose ``y >= ny`` or ``x >= nx``.
+
+Column solves (``native_columns``) take the ``(outer, z, inner)`` view every layout reshapes to
+without a copy (``kernels.columns.common.column_view``), with 3-D a, b, c, d and solution x::
+
+    void symbol_f64(const T *a, const T *b, const T *c, const T *d, T *x,
+                    int64_t outer, int64_t zext, int64_t inner, /* the view's extents (zext: padded z) */
+                    int64_t nz,                                 /* levels to solve (the logical z) */
+                    int64_t lo, int64_t hi,                     /* columns [lo, hi) of outer * inner */
+                    T *scratch)                                 /* nz elements, this thread's own */
+
+Column ``col`` is ``(o, i) = (col / inner, col % inner)``; its level ``k`` sits at
+``(o * zext + k) * inner + i``.
 """
 
 from __future__ import annotations
@@ -38,11 +51,17 @@ from typing import Any
 
 from numba import prange
 
+from kernels.base import Schedule
 from kernels.errors import KernelError
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk
 
+#: Schedules of a native column solve: how the columns are dealt to threads (the library decides the rest).
+COLUMN_BLOCKS = Schedule("block", "threads take contiguous ranges of columns; the library solves each range")
+COLUMN_CYCLIC = Schedule("cyclic", "runs of 64 columns dealt round-robin to threads; the library solves each run")
+
 _ARGTYPES = [ctypes.c_void_p] * 8 + [ctypes.c_int64] * 6
+_COLUMN_ARGTYPES = [ctypes.c_void_p] * 5 + [ctypes.c_int64] * 6 + [ctypes.c_void_p]
 
 _c64: Any = None
 _c32: Any = None
@@ -64,29 +83,58 @@ def _native_walk(q, out, extra, counts, strides, wstrides, jmul, imul, dy, dx, w
                 _c32(q.ctypes, out.ctypes, counts.ctypes, strides.ctypes, jmul.ctypes, imul.ctypes, dy.ctypes, dx.ctypes, ny, nx, halo, edge, first, end)
 
 
-def native_walk(library: str | Path, symbol: str) -> Compiled:
-    """The walk calling ``symbol``_f64 / ``symbol``_f32 of the shared library at ``library``.
+def _native_columns(a, b, c, d, x, nz, cyclic, scratch):  # type: ignore[no-untyped-def]
+    """Column solves over (outer, z, inner) views; each thread hands its columns to the library:
+    one contiguous range (block), or runs of 64 columns dealt round-robin (cyclic)."""
+    outer, zext, inner = a.shape[0], a.shape[1], a.shape[2]
+    ncol = outer * inner
+    nchunks = scratch.shape[0]
+    wide = x.itemsize == 8
+    nruns = (ncol + 63) // 64
+    for t in prange(nchunks):
+        lo, hi = chunk(ncol, nchunks, t)
+        calls = nruns if cyclic else 1
+        for n in range(t if cyclic else 0, calls, nchunks if cyclic else 1):
+            first, end = (n * 64, min(n * 64 + 64, ncol)) if cyclic else (lo, hi)
+            ws = scratch[t]
+            if wide:
+                _c64(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, outer, zext, inner, nz, first, end, ws.ctypes)
+            else:
+                _c32(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, outer, zext, inner, nz, first, end, ws.ctypes)
 
-    Not cached on disk: numba cannot cache code that calls a library loaded at run time, and
-    this wrapper compiles in well under a second.
-    """
+
+def _bind(template: Any, library: str | Path, symbol: str, argtypes: list[Any], suffix: str) -> Compiled:
     try:
         lib = ctypes.CDLL(str(library))
     except OSError as exc:
         raise KernelError(f"cannot load native library '{library}': {exc}") from None
     functions = {}
-    for suffix in ("f64", "f32"):
+    for dtype in ("f64", "f32"):
         try:
-            fn = getattr(lib, f"{symbol}_{suffix}")
+            fn = getattr(lib, f"{symbol}_{dtype}")
         except AttributeError:
-            raise KernelError(f"native library '{library}' has no function '{symbol}_{suffix}'; it must export {symbol}_f64 and {symbol}_f32") from None
-        fn.argtypes, fn.restype = _ARGTYPES, None
-        functions[f"_c{suffix[1:]}"] = fn
-    namespace = dict(_native_walk.__globals__, **functions)
-    walk = types.FunctionType(_native_walk.__code__, namespace, f"{symbol}_native")
+            raise KernelError(f"native library '{library}' has no function '{symbol}_{dtype}'; it must export {symbol}_f64 and {symbol}_f32") from None
+        fn.argtypes, fn.restype = argtypes, None
+        functions[f"_c{dtype[1:]}"] = fn
+    namespace = dict(template.__globals__, **functions)
+    walk = types.FunctionType(template.__code__, namespace, f"{symbol}_{suffix}")
     walk.__qualname__ = walk.__name__
-    walk.__module__ = _native_walk.__module__
+    walk.__module__ = template.__module__
     return build(walk, cache=False, native=(str(library), symbol))
+
+
+def native_walk(library: str | Path, symbol: str) -> Compiled:
+    """The stencil walk calling ``symbol``_f64 / ``symbol``_f32 of the shared library at ``library``.
+
+    Not cached on disk: numba cannot cache code that calls a library loaded at run time, and
+    this wrapper compiles in well under a second.
+    """
+    return _bind(_native_walk, library, symbol, _ARGTYPES, "native")
+
+
+def native_columns(library: str | Path, symbol: str) -> Compiled:
+    """The column-solve driver calling ``symbol``_f64 / ``symbol``_f32 (column family signature)."""
+    return _bind(_native_columns, library, symbol, _COLUMN_ARGTYPES, "native_columns")
 
 
 #: Flags of ``compile_c``: full optimisation for the machine that runs the sweep.

@@ -169,7 +169,7 @@ def test_the_native_c_stencil_example_meets_the_contract(monkeypatch: pytest.Mon
     kernel = _load_example("native_laplacian", monkeypatch)
     for check in FAST_CHECKS:
         check(kernel)
-    check_layouts(kernel, layouts=("var.z.y.x", "y/2.x/3.var.z.y%2.x%3", "z.y.x.var", "var.z.y+1.x+8"))
+    check_layouts(kernel, layouts=("var.z.y.x", "y/2.x/3.var.z.y%2.x%3", "z.y.x.var", "var.z.y+1.x+8", "y/3.x/4.var.z.y%3.x%4"))
     numba_kernel = get_kernel("laplacian")
     for spec in ("var.z.y.x", "y.x.z.var"):
         mine, theirs = kernel.make_problem(spec, GRID), numba_kernel.make_problem(spec, GRID)
@@ -178,6 +178,23 @@ def test_the_native_c_stencil_example_meets_the_contract(monkeypatch: pytest.Mon
         assert np.array_equal(mine.output.to_logical(), theirs.output.to_logical())
     report = vector_report(kernel.walk, kernel.bind(kernel.make_problem("var.z.y.x", GRID), "block").args)
     assert report["packed_fp_ops"] > 0  # the disassembled library function, not the numba wrapper
+
+
+def test_the_native_c_column_solve_example_meets_the_contract(monkeypatch: pytest.MonkeyPatch) -> None:
+    """docs/examples/native_varcoef.c (the column family's C signature), validated in every
+    contract layout, both dtypes, both schedules and builds; float64 output within rounding of the
+    numba varcoef's (the C code multiplies by 1/m in another order)."""
+    from kernels.native import c_compiler
+
+    if c_compiler() is None:
+        pytest.skip("no C compiler (looked for $CC, cc, gcc, clang): the native column-solve example cannot be built")
+    kernel = _load_example("native_varcoef", monkeypatch)
+    for check in CHECKS:
+        check(kernel)
+    mine, theirs = kernel.make_problem("var.y.x.z", GRID), get_kernel("varcoef").make_problem("var.y.x.z", GRID)
+    kernel.bind(mine, "block")()
+    get_kernel("varcoef").bind(theirs, "column")()
+    np.testing.assert_allclose(mine.output.to_logical(), theirs.output.to_logical(), rtol=1e-14, atol=0)
 
 
 def test_a_native_library_that_is_missing_or_incomplete_is_a_clear_error(tmp_path) -> None:  # type: ignore[no-untyped-def]

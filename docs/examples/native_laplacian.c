@@ -25,7 +25,6 @@ void NAME(const T *restrict q, T *restrict out, const int64_t *counts, const int
     const int64_t *north = dy + (halo + 1) * ny, *south = dy + (halo - 1) * ny;                   \
     const int64_t *east = dx + (halo + 1) * nx, *west = dx + (halo - 1) * nx;                     \
     const int64_t n4 = counts[4], n5 = counts[5], tj = jmul[5], ti = imul[5];                      \
-    const int64_t first = edge < n5 ? edge : n5, last = n5 - edge > first ? n5 - edge : first;    \
     for (int64_t m = lo; m < hi; m++) {                                                            \
         int64_t base, j0, i0;                                                                      \
         item_origin(m, counts, strides, jmul, imul, &base, &j0, &i0);                              \
@@ -33,15 +32,21 @@ void NAME(const T *restrict q, T *restrict out, const int64_t *counts, const int
             const T *restrict p = q + base + r * strides[4];                                       \
             T *restrict o = out + base + r * strides[4];                                           \
             const int64_t j = j0 + r * jmul[4], i = i0 + r * imul[4];                              \
+            if (j >= ny || i >= nx) continue; /* the unused part of a partial last tile */        \
+            int64_t len = n5; /* a row in a partial last tile ends early */                      \
+            if (tj > 0 && (ny - j + tj - 1) / tj < len) len = (ny - j + tj - 1) / tj;              \
+            if (ti > 0 && (nx - i + ti - 1) / ti < len) len = (nx - i + ti - 1) / ti;              \
+            const int64_t first = edge < len ? edge : len;                                         \
+            const int64_t last = len - edge > first ? len - edge : first;                          \
             if (last > first) { /* interior: constant displacements, a plain vector loop */        \
                 const int64_t jj = j + first * tj, ii = i + first * ti;                            \
                 const int64_t de = east[ii], dw = west[ii], dn = north[jj], ds = south[jj];        \
                 for (int64_t e = first; e < last; e++)                                             \
                     o[e] = p[e + de] + p[e + dw] + p[e + dn] + p[e + ds] - (T)4 * p[e];            \
             }                                                                                      \
-            for (int64_t e = 0; e < n5; e++) { /* row ends: a tile edge or the periodic seam */    \
+            for (int64_t e = 0; e < len; e++) { /* row ends: a tile edge or the periodic seam */   \
                 if (e == first) e = last;                                                          \
-                if (e >= n5) break;                                                                \
+                if (e >= len) break;                                                               \
                 const int64_t jj = j + e * tj, ii = i + e * ti;                                    \
                 o[e] = p[e + east[ii]] + p[e + west[ii]] + p[e + north[jj]] + p[e + south[jj]]     \
                        - (T)4 * p[e];                                                              \

@@ -75,28 +75,34 @@ def solve_strips(a, b, c, d, x, nz, one, fac, nchunks, width):  # type: ignore[n
 
 
 def solve_pairs(a, b, c, d, x, nz, one, fac, nchunks):  # type: ignore[no-untyped-def]
-    """Substitutions for two columns at once, their recurrences interleaved (see varcoef's pairs)."""
+    """Substitutions for two columns at once, their recurrences interleaved, through flat offsets
+    stepped by the level stride (see varcoef's pairs)."""
     factorise_levels(a, b, c, nz, one, fac)
-    inner = d.shape[2]
-    ncol = d.shape[0] * inner
+    outer, zext, inner = d.shape[0], d.shape[1], d.shape[2]
+    fd, fx = d.reshape(-1), x.reshape(-1)
+    ncol = outer * inner
     npair = (ncol + 1) // 2
+    step = np.uintp(inner)
     for t in prange(nchunks):
         lo, hi = chunk(npair, nchunks, t)
         for pair in range(lo, hi):
             o, i = column_at(2 * pair, inner)
             p, j = column_at(min(2 * pair + 1, ncol - 1), inner)
-            x0, x1 = d[o, 0, i] * fac[1, 0], d[p, 0, j] * fac[1, 0]
-            x[o, 0, i], x[p, 0, j] = x0, x1
+            u, v = np.uintp(o * zext * inner + i), np.uintp(p * zext * inner + j)
+            x0, x1 = fd[u] * fac[1, 0], fd[v] * fac[1, 0]
+            fx[u], fx[v] = x0, x1
             for kk in range(1, nz):
                 k = np.uintp(kk)  # unsigned: no negative-index wrap
+                u, v = u + step, v + step
                 ak, rk = a[k], fac[1, k]
-                x0, x1 = (d[o, k, i] - ak * x0) * rk, (d[p, k, j] - ak * x1) * rk
-                x[o, k, i], x[p, k, j] = x0, x1
+                x0, x1 = (fd[u] - ak * x0) * rk, (fd[v] - ak * x1) * rk
+                fx[u], fx[v] = x0, x1
             for kk in range(nz - 2, -1, -1):
                 k = np.uintp(kk)
+                u, v = u - step, v - step
                 ck = fac[0, k]
-                x0, x1 = x[o, k, i] - ck * x0, x[p, k, j] - ck * x1
-                x[o, k, i], x[p, k, j] = x0, x1
+                x0, x1 = fx[u] - ck * x0, fx[v] - ck * x1
+                fx[u], fx[v] = x0, x1
 
 
 COLUMNS = build(solve_columns)
