@@ -34,7 +34,7 @@ def numpy_physical(values: np.ndarray, layout: Layout) -> np.ndarray:
     return values.reshape(shape).transpose([parts.index((t.axis, t.part)) for t in layout.tokens])
 
 
-@settings(max_examples=40)
+@settings(max_examples=25)
 @given(st.data(), st.sampled_from(["float32", "float64"]), st.sampled_from(["parallel", "serial"]))
 def test_conversion_is_bit_exact(data: st.DataObject, dtype: str, build: str) -> None:
     """Source: NumPy's reshape and transpose build the expected physical array independently."""

@@ -205,11 +205,13 @@ def test_unwritable_results_directory(tmp_path: Path) -> None:
 @pytest.mark.slow
 def test_resume_refuses_a_changed_suite(tmp_path: Path) -> None:
     out = tmp_path / "run"
-    assert _sweep("--smoke", "--out", str(out)).returncode == 0
+    (tmp_path / "first").mkdir()
+    first = _suite(tmp_path / "first", '["laplacian"]', repeats=2)  # the smallest real run
+    assert _sweep(str(first), "--out", str(out)).returncode == 0
     other = _suite(tmp_path)
     proc = _sweep(str(other), "--resume", str(out))
     assert proc.returncode == 2 and "not the given" in proc.stderr
-    proc = _sweep("--smoke", "--out", str(out))
+    proc = _sweep(str(first), "--out", str(out))
     assert proc.returncode == 2 and "already holds a run" in proc.stderr
 
 
