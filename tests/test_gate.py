@@ -229,8 +229,8 @@ def test_pytest_benchmark_json_imports_ranks_and_is_refused_by_the_gate_without_
     Source: pytest-benchmark 5.3.1 (installed here), whose saved JSON holds a ``stats.data`` list of
     round times only when asked for raw data; this test makes both files with that plugin.
     """
-    common = [sys.executable, "-m", "pytest", "-q", "tests/bench/test_bench_kernels.py", "-k", "laplacian and not yd8",
-              "--benchmark-enable", "--benchmark-min-rounds=5", "-p", "no:cacheprovider", "-n", "0"]
+    common = [sys.executable, "-m", "pytest", "-q", "tests/bench/test_bench_kernels.py", "-k", "laplacian and block and not yd8",
+              "--benchmark-enable", "--benchmark-min-rounds=5", "--benchmark-max-time=0.1", "-p", "no:cacheprovider", "-n", "0"]
     env = {k: v for k, v in os.environ.items() if not k.startswith("PYTEST_XDIST")}  # a plain pytest, not a worker
     with_data = tmp_path / "with.json"
     assert subprocess.run([*common, f"--benchmark-json={with_data}"], cwd=ROOT, capture_output=True, text=True,
