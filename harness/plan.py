@@ -70,7 +70,7 @@ def group_bytes(group: Group) -> int:
 
 def working_set_warnings(groups: list[Group], suite: Suite, l2_bytes: int | None) -> list[str]:
     """One line per (kernel, schedule, grid, dtype) whose per-thread working set exceeds L2."""
-    from kernels.base import Schedule
+    from harness.prepare import schedule_with_options
     from kernels.registry import get_kernel
 
     if not l2_bytes:
@@ -83,10 +83,7 @@ def working_set_warnings(groups: list[Group], suite: Suite, l2_bytes: int | None
                 continue
             seen.add(key)
             kernel = get_kernel(case.kernel)
-            schedule = kernel.schedule(case.schedule)
-            if case.kernel in options and schedule.params:
-                given = dict(options[case.kernel])
-                schedule = Schedule(schedule.name, schedule.summary, tuple((k, given.get(k, v)) for k, v in schedule.params))
+            schedule = schedule_with_options(kernel, case.schedule, options)
             need = kernel.thread_working_set(Extents.parse(case.grid), case.dtype, schedule)
             if need and need > l2_bytes:
                 lines.append(f"{case.kernel}/{case.schedule} at {case.grid} {case.dtype}: a thread's working set is about "

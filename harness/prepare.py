@@ -79,7 +79,7 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
                 problems[case.layout] = kernel.make_problem(case.layout, extents, group.dtype, ctx.seed,
                                                             first_touch if ctx.first_touch else None)
             problem = problems[case.layout]
-            schedule = _schedule(kernel, case.schedule, ctx.kernel_options)
+            schedule = schedule_with_options(kernel, case.schedule, ctx.kernel_options)
             impl, args = kernel.implementation(problem, schedule)
             dispatcher = getattr(impl, case.build)
             rec.update(out.compile(dispatcher, args))
@@ -180,7 +180,8 @@ def prepare_group(group: Group, ctx: Context, probes: bool = True) -> Prepared:
     return out
 
 
-def _schedule(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:
+def schedule_with_options(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:
+    """A kernel's schedule ``name`` with the suite's ``kernels.options`` applied to its parameters."""
     from kernels.base import Schedule
 
     schedule = kernel.schedule(name)

@@ -205,8 +205,8 @@ class Layout:
             "strides_bytes": self.strides(extents, dt),
             "bytes": self.nbytes(extents, dt),
             "padding_bytes": self.nbytes(extents, dt) - extents.points * dt.itemsize,
-            "partial_tiles": {axis: f"last tile holds {tile - left} of {tile}" for axis, left in self.remainder(extents).items()
-                              for tile in (self._tiles[axis],)},
+            "partial_tiles": {axis: f"last tile holds {self._tiles[axis] - left} of {self._tiles[axis]}"
+                              for axis, left in self.remainder(extents).items()},
             "contiguous": ".".join(self.contiguous_tokens(extents)),
             "alignment": ALIGNMENT,
             "base_offset": self.base_offset,
