@@ -29,8 +29,30 @@ def median_and_iqr(ns: Any) -> tuple[float, float]:
     return float(np.median(arr)), float(q75 - q25)
 
 
-def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, harness_overhead_ns: float) -> dict[str, Any]:
-    """Median, IQR, bandwidth, percent of roof and GFLOP/s of one case from all its measured samples."""
+def group_overhead(records: list[dict[str, Any]]) -> dict[str, dict[str, float]]:
+    """Per build, the empty kernel's time over a group's cases: median, quartiles, max and count.
+
+    The empty call's cost (dispatch plus fork/join) hardly depends on the layout, so the median
+    over a group's cases is a robust estimate: one case measured while a neighbour stole the
+    core (hundreds of µs against a few) moves it little. From memory, no single source: the
+    median over many repeated measurements is common practice for such outliers.
+    """
+    by_build: dict[str, list[float]] = {}
+    for rec in records:
+        if rec.get("overhead_ns"):
+            by_build.setdefault(rec.get("build", "parallel"), []).append(float(rec["overhead_ns"]))
+    out = {}
+    for build, values in by_build.items():
+        q25, q50, q75 = np.percentile(values, [25, 50, 75])
+        out[build] = {"median_ns": float(q50), "q25_ns": float(q25), "q75_ns": float(q75), "max_ns": float(max(values)),
+                      "cases": len(values)}
+    return out
+
+
+def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, harness_overhead_ns: float,
+                    overhead: dict[str, dict[str, float]] | None = None) -> dict[str, Any]:
+    """Median, IQR, bandwidth, percent of roof and GFLOP/s of one case from all its measured samples;
+    ``overhead`` (from ``group_overhead``) sets the overhead-bound flag."""
     out = dict(record)
     out["samples"] = len(ns)
     out["harness_overhead_ns"] = harness_overhead_ns
@@ -45,9 +67,23 @@ def case_statistics(record: dict[str, Any], ns: list[int], roof: Any | None, har
         roof_gbps = roof.at(record["footprint_bytes"]) / 1e9
         out["roof_gbps"] = roof_gbps
         out["pct_roof"] = 100.0 * out["gbps"] / roof_gbps if roof_gbps else None
-    if record.get("overhead_ns"):
+    group = (overhead or {}).get(record.get("build", "parallel"))
+    if group is not None and record.get("overhead_ns"):  # only cases with an empty kernel (no probes)
+        out["group_overhead_ns"] = group["median_ns"]
+        out["overhead_bound"] = bool(median < OVERHEAD_MULTIPLE * group["median_ns"])
+    elif record.get("overhead_ns"):
         out["overhead_bound"] = bool(median < OVERHEAD_MULTIPLE * record["overhead_ns"])
     return out
+
+
+def vector_path(packed_code: bool, vector_bits: int, trip: int | None, itemsize: int) -> dict[str, Any]:
+    """Whether the path that ran was vectorised: packed instructions in the compiled specialisation
+    (``vector_code``) and an inner loop of at least one vector of the widest registers they use
+    (``vector_trip`` elements; LLVM's vector body runs only for that many, the rest is its scalar
+    remainder). An unknown trip count trusts the code alone."""
+    lanes = vector_bits // (8 * itemsize) if vector_bits else 0
+    ran = bool(packed_code) and (trip is None or trip >= lanes)
+    return {"vector_code": bool(packed_code), "vector_bits": vector_bits, "vector_trip": trip, "vectorised": ran}
 
 
 def probe_best_bandwidth(ns: list[int] | np.ndarray, traffic_bytes: float) -> float:

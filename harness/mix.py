@@ -21,8 +21,7 @@ from harness.cases import ARROW, CaseKind, is_plain, of_kind
 def _weights(runs: Any, options: Any, machine: str) -> dict[str, float]:
     if options.mix is not None:
         return options.mix
-    mix = runs.metadata[machine].mix
-    return {k: float(v) for k, v in mix}
+    return runs.mix(machine)
 
 
 def _conversion_rounds(runs: Any, machine: str, grid: str, dtype: str, threads: int) -> dict[str, Rounds]:

@@ -40,7 +40,8 @@ class Prepared:
         rec = case.as_dict()
         rec.update(family=family, status="pending", message="", max_rel_error=None, tolerance=None,
                    footprint_bytes=footprint, traffic_bytes=traffic, flops=flops, overhead_ns=None, compile_s=None,
-                   loaded_from_cache=None, vectorised=None, vector_bits=None)
+                   loaded_from_cache=None, vectorised=None, vector_bits=None,
+                   vector_code=None, vector_trip=None)
         self.records[case.id] = rec
         return rec
 
@@ -91,7 +92,7 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
             out.compile(impl.empty, args)
             rec["overhead_ns"] = overhead_ns(lambda impl=impl, args=args: impl.empty(*args))
             if ctx.inspect_vectorisation:
-                rec.update(_vector_fields(impl, args, ctx.seen_reports))
+                rec.update(_vector_fields(impl, args, ctx.seen_reports, kernel.vector_trip(problem, schedule), problem.dtype.itemsize))
             rec["status"] = "ok"
             out.calls[case.id] = Bound(dispatcher, args)
             if kernel.overwrites_inputs or ctx.restore_inputs:
@@ -191,15 +192,16 @@ def schedule_with_options(kernel: Any, name: str, options: dict[str, tuple[tuple
     return schedule
 
 
-def _vector_fields(impl: Any, args: tuple, seen: dict[str, dict[str, Any]]) -> dict[str, Any]:
+def _vector_fields(impl: Any, args: tuple, seen: dict[str, dict[str, Any]], trip: int | None, itemsize: int) -> dict[str, Any]:
     import numba
 
+    from harness.metrics import vector_path
     from kernels.jit import vector_report
 
     key = impl.name + str(tuple(numba.typeof(a) for a in args))
     if key not in seen:
         seen[key] = vector_report(impl, args, parallel=False)
-    return {k: seen[key][k] for k in ("vectorised", "vector_bits")}
+    return vector_path(seen[key]["vectorised"], seen[key]["vector_bits"], trip, itemsize)
 
 
 def _restorer(problem: Any) -> Any:

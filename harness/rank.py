@@ -21,7 +21,7 @@ from __future__ import annotations
 import math
 import sys
 import warnings
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -58,12 +58,38 @@ class Runs:
     cases: pd.DataFrame
     samples: pd.DataFrame
     metadata: dict[str, RunMetadata]  # machine id -> metadata (the first run seen)
+    run_metadata: dict[str, list[RunMetadata]] = field(default_factory=dict)  # machine id -> every run's
+
+    def looks(self, machine: str) -> int:
+        """The most adaptive looks any run of ``machine`` may have taken (the ranking's alpha divides by it)."""
+        return max(md.timing().max_looks() for md in self.run_metadata.get(machine) or [self.metadata[machine]])
+
+    def mix(self, machine: str) -> dict[str, float]:
+        """Kernel weights of ``machine``'s runs, from their own suites; runs that disagree are an error."""
+        found: dict[tuple[tuple[str, float], ...], str] = {}
+        for md in self.run_metadata.get(machine) or [self.metadata[machine]]:
+            weights = tuple(sorted((k, float(v)) for k, v in md.mix))
+            found.setdefault(weights, md.suite_name)
+        if len(found) > 1:
+            described = "; ".join(f"suite {name!r}: " + (", ".join(f"{k}={v:g}" for k, v in w) or "none") for w, name in found.items())
+            raise StridewiseError(f"the runs of machine {machine} weight the kernel mix differently ({described}); "
+                                  "give one with --mix, e.g. --mix varcoef=1,advection=2")
+        return dict(next(iter(found))) if found else {}
 
 
 def load_runs(paths: list[str]) -> Runs:
     """Read run directories. Round ids are made unique across runs and each sample gets a
     ``block`` (one per run and repetition), so repeated runs pool as blocks of rounds."""
+    seen: dict[Path, str] = {}
+    for path in paths:
+        real = Path(path).resolve()
+        if real in seen:
+            raise StridewiseError(f"run directory {path} is given twice (as {seen[real]} too): pooling a run with "
+                                  "itself would count its samples twice")
+        seen[real] = path
     cases_list, samples_list, meta = [], [], {}
+    every: dict[str, list[RunMetadata]] = {}
+    started: dict[tuple[str, str], str] = {}
     for index, path in enumerate(paths):
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
@@ -74,6 +100,11 @@ def load_runs(paths: list[str]) -> Runs:
             print(f"stridewise: warning: {w.message}", file=sys.stderr)
         if cases.empty:
             raise RunStoreError(f"{path} holds no cases")
+        identity = (machine, str(md.raw.get("started", "")))
+        if identity[1] and identity in started:
+            raise StridewiseError(f"{path} and {started[identity]} are copies of one run (same machine, started "
+                                  f"{identity[1]}): pooling them would count its samples twice")
+        started[identity] = path
         # Repetitions of a group write one row per case each; the first describes the case.
         cases = cases.drop_duplicates("case_id", keep="first").assign(machine=machine, run=str(path))
         repetition = samples["repetition"] if "repetition" in samples else 0
@@ -82,7 +113,8 @@ def load_runs(paths: list[str]) -> Runs:
         cases_list.append(cases)
         samples_list.append(samples[samples["phase"] == "measure"])
         meta.setdefault(machine, md)
-    return Runs(pd.concat(cases_list, ignore_index=True), pd.concat(samples_list, ignore_index=True), meta)
+        every.setdefault(machine, []).append(md)
+    return Runs(pd.concat(cases_list, ignore_index=True), pd.concat(samples_list, ignore_index=True), meta, every)
 
 
 def tiers(per_round: dict[str, pd.Series], order: list[str], alpha: float, floor: float) -> dict[str, int]:
@@ -176,6 +208,8 @@ def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | N
     frame["roof_gbps"] = [c.get("roof_gbps", np.nan) for c in case]
     frame["overhead_bound"] = [c.get("overhead_bound") is True for c in case]
     frame["vectorised"] = [c.get("vectorised") for c in case]
+    frame["vector_code"] = [c.get("vector_code") for c in case]
+    frame["vector_trip"] = [c.get("vector_trip") for c in case]
     frame["plain"] = frame["layout"].map(is_plain)
     frame = frame.sort_values(["tier", "reported_median_ns"], na_position="last").reset_index(drop=True)
     frame["rank"] = np.arange(1, len(frame) + 1)
@@ -218,7 +252,7 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
         probes = _probes_of(cases, key)
         wanted = set(grp["case_id"]) | set(probes["case_id"])  # serial builds are in grp
         mine = runs.samples[runs.samples["case_id"].isin(wanted) & (runs.samples["machine"] == key[0])]
-        looks = runs.metadata[key[0]].timing().max_looks()
+        looks = runs.looks(key[0])
         group_options = replace(options, alpha=options.alpha / looks)
         ranked, group_rounds = rank_group(grp, mine, group_options, probes)
         ranked["looks"] = looks

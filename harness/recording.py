@@ -7,7 +7,7 @@ from collections import defaultdict
 from typing import Any
 
 from harness.cases import CaseKind
-from harness.metrics import case_statistics, probe_best_bandwidth
+from harness.metrics import case_statistics, group_overhead, probe_best_bandwidth
 from harness.roof import RoofCurve
 from harness.store import RunStore
 
@@ -66,8 +66,9 @@ def record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, An
             probes.append((rec["footprint_bytes"], probe_best_bandwidth(ns, rec["traffic_bytes"])))
     probe_curve = RoofCurve(result["threads"], *map(tuple, zip(*sorted(probes)))) if probes else roof
     cases = []
+    overhead = group_overhead([r for r in result["records"] if CaseKind.of(r["kernel"]) is not CaseKind.PROBE])
     for rec in result["records"]:
-        row = case_statistics(rec, by_case.get(rec["case_id"], []), probe_curve, result["harness_overhead_ns"])
+        row = case_statistics(rec, by_case.get(rec["case_id"], []), probe_curve, result["harness_overhead_ns"], overhead)
         row["order_seed"] = result["order_seed"]
         row["repetition"] = result["repetition"]
         cases.append(row)
@@ -78,6 +79,7 @@ def record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, An
         "harness_overhead_ns": result["harness_overhead_ns"],
         "timer_overhead_ns": result["timer_overhead_ns"],
         "flush_ns": result["flush_ns"],
+        "empty_kernel": overhead,
         "order_seed": result["order_seed"],
     }
     metadata["compiles"].extend(result["compiles"])

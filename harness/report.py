@@ -13,7 +13,7 @@ from harness.intervals import Interval
 from harness.metrics import OVERHEAD_MULTIPLE, SCHEDULE_LIMITED_PCT
 from harness.rank import Ranking
 from harness.report_parts import failed_section, fmt_interval, fmt_number, mix_section, repetition_section, scaling_section
-from harness.store import RunMetadata, recorded_false
+from harness.store import RunMetadata, vector_flag
 
 FAMILY_WORDS = {"columns": "column solves", "stencils": "stencils"}
 TABLE_COLUMNS = ["rank", "tier", "layout", "schedule", "median ms", "IQR/median", "GB/s", "% roof", "GFLOP/s", "x best",
@@ -25,7 +25,9 @@ FLAG_NOTES = {
              "where the interval includes 100 the excess is within noise.",
     "overhead-bound": f"`overhead-bound`: the median is under {OVERHEAD_MULTIPLE:g}x the empty kernel's dispatch and "
                       "fork/join time.",
-    "scalar": "`scalar`: the compiled loop has no packed vector instructions.",
+    "scalar": "`scalar`: the compiled code has no packed vector instructions.",
+    "short-trip": "`short-trip`: the compiled code has packed vector instructions, but the inner loop that ran "
+                  "is shorter than one vector of them (its trip count is in `vector_trip`), so the path that ran was scalar.",
     "schedule-limited": "`schedule-limited`: outside tier 1, and even the upper end of its `% roof` interval is under "
                         f"{SCHEDULE_LIMITED_PCT:g}%: every layout moves the same compulsory bytes, so this gap is the code that "
                         "ran for the order (its best schedule), not the order's memory traffic; a better schedule may close it.",
@@ -130,8 +132,8 @@ def _group_table(grp: pd.DataFrame) -> tuple[str, list[str]]:
         flags = []
         if e["overhead_bound"]:
             flags.append("overhead-bound")
-        if recorded_false(e.get("vectorised")):
-            flags.append("scalar")
+        if vector_flag(e):
+            flags.append(vector_flag(e))
         if e.get("above_roof"):
             flags.append(">roof")
         if e.get("schedule_limited"):
@@ -206,7 +208,7 @@ EXPORT_COLUMNS = [
     "pct_roof", "pct_roof_lo", "pct_roof_hi", "above_roof", "gflops",
     "time_vs_best", "time_vs_best_lo", "time_vs_best_hi",
     "speedup_vs_reference", "speedup_vs_reference_lo", "speedup_vs_reference_hi",
-    "overhead_bound", "schedule_limited", "vectorised", "plain", "rounds",
+    "overhead_bound", "schedule_limited", "vectorised", "vector_code", "vector_trip", "plain", "rounds",
 ]
 SCALING_EXPORT = ["speedup", "speedup_lo", "speedup_hi", "efficiency", "efficiency_lo", "efficiency_hi"]
 

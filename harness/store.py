@@ -32,9 +32,9 @@ CASE_COLUMNS = [
     "compile_s", "loaded_from_cache", "vectorised", "vector_bits", "order_seed",
 ]
 #: Columns added after the first format; a reader fills them in when an older run lacks them.
-OPTIONAL_COLUMNS = {"repetition": 0, "version": ""}
+OPTIONAL_COLUMNS = {"repetition": 0, "version": "", "group_overhead_ns": None, "vector_code": None, "vector_trip": None}
 #: Columns holding True, False or nothing; read back as Python booleans or None (CSV holds text).
-BOOLEAN_COLUMNS = ("overhead_bound", "loaded_from_cache", "vectorised")
+BOOLEAN_COLUMNS = ("overhead_bound", "loaded_from_cache", "vectorised", "vector_code")
 
 
 @dataclass(frozen=True)
@@ -229,6 +229,17 @@ class RunStore:
 def recorded_false(value: Any) -> bool:
     """True only for a recorded False, not for a missing value (a boolean cell of a frame)."""
     return value is not None and value == value and not value
+
+
+def vector_flag(row: Any) -> str | None:
+    """``scalar`` when the compiled code has no packed arithmetic; ``short-trip`` when it has, but
+    the inner loop that ran was shorter than one vector; None when vectorised or not recorded."""
+    code = row.get("vector_code")
+    if recorded_false(code) or (not (code is not None and code == code) and recorded_false(row.get("vectorised"))):
+        return "scalar"
+    if recorded_false(row.get("vectorised")):
+        return "short-trip"
+    return None
 
 
 def _boolean(value: Any) -> bool | None:

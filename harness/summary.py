@@ -7,7 +7,7 @@ from tabulate import tabulate
 
 from harness.cases import CaseKind, of_kind
 from harness.report_parts import failed_section, fmt_number
-from harness.store import RunMetadata, recorded_false
+from harness.store import RunMetadata, vector_flag
 
 
 def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
@@ -41,8 +41,8 @@ def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
             flags = []
             if r.get("overhead_bound") is True:
                 flags.append("overhead-bound")
-            if recorded_false(r.get("vectorised")):
-                flags.append("scalar")
+            if vector_flag(r):
+                flags.append(vector_flag(r))
             rows.append(
                 [
                     r["layout"], r["schedule"], r["build"], fmt_number(r["median_ns"] / 1e6, ".3f"),

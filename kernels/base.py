@@ -193,6 +193,11 @@ class Kernel(ABC):
         """Bytes one thread keeps live while it works on one item of ``schedule`` (None: no model)."""
         return None
 
+    def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
+        """Trip count, for this problem's extents, of the innermost loop the compiler may pack into
+        vector registers (None: no model). A packed loop shorter than one vector runs scalar."""
+        return None
+
     @abstractmethod
     def tolerance(self, dtype: Any) -> float:
         """Largest accepted ``max|out - ref| / max|ref|``."""

@@ -14,6 +14,7 @@ import pytest
 
 from harness.rank import RankOptions, Runs, rank_group, rank_runs, tiers
 from harness.report import render, render_markdown
+from kernels.errors import StridewiseError
 from harness.store import CASE_COLUMNS, SAMPLE_COLUMNS, RunMetadata
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -133,6 +134,18 @@ def test_mix_prefers_a_single_layout_when_no_conversion_is_measured() -> None:
     assert mix["single_layout"] == "y.x.z.var"  # 2e6 + 1e6 beats 1e6 + 3e6
     assert mix["per_kernel"] == {"k1": "var.z.y.x", "k2": "y.x.z.var"}
     assert "not measured" in mix["switch_note"]
+
+
+def test_mix_weights_come_from_each_runs_own_suite() -> None:
+    def meta(name: str, mix: list) -> RunMetadata:
+        return RunMetadata({"fingerprint": {"machine_id": "m"}, "suite": {"name": name, "mix": mix}, "workers": {}})
+
+    first, second = meta("alpha", [["k1", 1]]), meta("beta", [["k1", 1], ["k2", 3]])
+    empty = pd.DataFrame()
+    assert Runs(empty, empty, {"m": first}, {"m": [first, meta("again", [["k1", 1.0]])]}).mix("m") == {"k1": 1.0}
+    assert Runs(empty, empty, {"m": second}, {"m": [second]}).mix("m") == {"k1": 1.0, "k2": 3.0}  # not the first seen
+    with pytest.raises(StridewiseError, match=r"weight the kernel mix differently \(suite 'alpha': k1=1; suite 'beta'.*--mix"):
+        Runs(empty, empty, {"m": first}, {"m": [first, second]}).mix("m")
 
 
 def _write_run(path: Path, cases_text: str, samples_text: str) -> None:

@@ -2,8 +2,10 @@
 
 from __future__ import annotations
 
+import json
 import os
 import re
+import shutil
 import random
 import signal
 import subprocess
@@ -273,10 +275,28 @@ def test_repeat_runs_every_group_again_and_reports_agreement(tmp_path: Path) -> 
     summary = (out / "summary.md").read_text()
     assert "## Run-to-run agreement" in summary and "| laplacian" in summary.split("## Run-to-run agreement")[1]
     assert RunStore(out).metadata()["suite"]["timing"]["repetitions"] == 2
-    # Several run directories of one machine pool as blocks too (the same run twice: 4 blocks).
-    proc = subprocess.run([sys.executable, "-m", "harness", "rank", str(out), str(out)], capture_output=True, text=True, cwd=ROOT)
+    # Several run directories of one machine pool as blocks too: 2 repetitions + 1 run = 3 blocks.
+    second = tmp_path / "second"
+    proc = _sweep(str(_suite(tmp_path, '["laplacian"]', repeats=6)), "--out", str(second))
     assert proc.returncode == 0, proc.stderr
-    assert "| 4 " in proc.stdout.split("## Run-to-run agreement")[1]
+    rank = lambda *runs: subprocess.run([sys.executable, "-m", "harness", "rank", *map(str, runs)],  # noqa: E731
+                                        capture_output=True, text=True, cwd=ROOT)
+    proc = rank(out, second)
+    assert proc.returncode == 0, proc.stderr
+    assert "| 3 " in proc.stdout.split("## Run-to-run agreement")[1]
+    # The same run twice, or a copy of it, would count its samples twice: one line, exit 2.
+    copy = tmp_path / "copy"
+    shutil.copytree(second, copy)
+    for runs in ((second, second), (second, copy)):
+        proc = rank(*runs)
+        assert proc.returncode == 2 and "twice" in proc.stderr and "Traceback" not in proc.stderr, proc.stderr
+    # Two machines: the copy relabelled as another machine (test-only edit of its metadata).
+    meta = json.loads((copy / "metadata.json").read_text())
+    meta["fingerprint"]["machine_id"] = "othermachine"
+    (copy / "metadata.json").write_text(json.dumps(meta))
+    proc = rank(second, copy)
+    assert proc.returncode == 0, proc.stderr
+    assert "machine othermachine" in proc.stdout and "Traceback" not in proc.stderr
 
 
 @pytest.mark.parametrize("args, message", [(["--repeat", "0"], "--repeat must be a positive"),

@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from kernels.base import Kernel, Schedule
+from kernels.base import Kernel, Problem, Schedule
 from kernels.grid import Extents
 from kernels.jit import inline
 from kernels.state import State
@@ -188,6 +188,22 @@ class ColumnSolve(Kernel):
 
     def tolerance(self, dtype: Any) -> float:
         return column_tolerance(dtype)
+
+    def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
+        """Strips pack their inner loop across adjacent columns; column and pairs run one or two
+        recurrences along z, which leave nothing wider to pack."""
+        if schedule.name == "column":
+            return 1
+        if schedule.name == "pairs":
+            return 2
+        if schedule.name == "strip":
+            return min(schedule.param("width", STRIP_WIDTH), self.strip_extent(problem.output))
+        return None
+
+    def strip_extent(self, state: State) -> int:
+        """Columns adjacent in memory that one strip sweeps: the storage extent inside z."""
+        shape = state.data.shape
+        return int(np.prod(shape[state.layout.index_of("z") + 1 :], dtype=np.int64))
 
     def thread_working_set(self, extents: Extents, dtype: Any, schedule: Schedule) -> int | None:
         """Columns in flight (1, 2 or the strip width) x levels x (3-D inputs + output + one scratch row)."""

@@ -18,6 +18,7 @@ from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
 from kernels.parallel import chunk, thread_count
 from kernels.registry import register
+from kernels.state import State
 
 
 def solve_columns(a, b, c, d, x, nz, nvar, one, ws):  # type: ignore[no-untyped-def]
@@ -184,6 +185,11 @@ class SharedCoef(ColumnSolve):
             return PAIRS, (*views, ext.z, ext.var, dt.type(1), np.zeros((thread_count(), 2, 3, ext.z), dt))
         width = schedule.param("width", STRIP_WIDTH)
         return STRIPS, (*views, ext.z, ext.var, dt.type(1), np.zeros((thread_count(), 3, ext.z, width), dt))
+
+    def strip_extent(self, state: State) -> int:
+        """Strips sweep C, the storage extent inside both z and var."""
+        shape, layout = state.data.shape, state.layout
+        return int(np.prod(shape[max(layout.index_of("z"), layout.index_of("var")) + 1 :], dtype=np.int64))
 
     def factorised_systems(self, extents: Extents) -> int:
         return extents.y * extents.x

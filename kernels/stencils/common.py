@@ -244,9 +244,21 @@ class Stencil(Kernel):
         """Scalars the point function reads, in the state's dtype."""
         raise NotImplementedError
 
+    def _walks_bands(self, problem: Problem) -> bool:
+        fields = problem.fields
+        return self.walk.native is None and self.companion is None and len(fields) == 1 and has_band_form(fields["q"])
+
+    def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
+        """The interior of a row: a full x row in the band walk's scratch, else the walked row
+        less the edge elements handled one by one."""
+        if self._walks_bands(problem):
+            return problem.extents.x
+        g = row_geometry(problem.fields["q"], self.halo, self.merge_vertical)
+        return max(int(g.counts[-1]) - 2 * g.edge, 0)
+
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         fields = problem.fields
-        if self.walk.native is None and self.companion is None and len(fields) == 1 and has_band_form(fields["q"]):
+        if self._walks_bands(problem):
             return self._band_implementation(problem, schedule)
         g = row_geometry(fields["q"], self.halo, self.merge_vertical)
         w = g if self.companion is None else row_geometry(fields[self.companion], self.halo, False, zero_var_stride=True)
