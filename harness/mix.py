@@ -61,6 +61,7 @@ def kernel_mix(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds], runs:
             entry["note"] = "no layout was run for every weighted kernel"
             out.append(entry)
             continue
+        entry["totals"] = dict(sorted(totals.items(), key=lambda kv: kv[1]))
         best_total = min(totals.values())
         near = [l for l, t in totals.items() if t <= best_total * (1 + options.floor)]
         single = min(near, key=lambda l: (not is_plain(l), totals[l]))

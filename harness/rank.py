@@ -66,15 +66,16 @@ class Runs:
 
     def mix(self, machine: str) -> dict[str, float]:
         """Kernel weights of ``machine``'s runs, from their own suites; runs that disagree are an error."""
-        found: dict[tuple[tuple[str, float], ...], str] = {}
+        found: dict[tuple[tuple[str, float], ...], tuple[str, dict[str, float]]] = {}
         for md in self.run_metadata.get(machine) or [self.metadata[machine]]:
-            weights = tuple(sorted((k, float(v)) for k, v in md.mix))
-            found.setdefault(weights, md.suite_name)
+            weights = {k: float(v) for k, v in md.mix}  # in the suite's order
+            found.setdefault(tuple(sorted(weights.items())), (md.suite_name, weights))
         if len(found) > 1:
-            described = "; ".join(f"suite {name!r}: " + (", ".join(f"{k}={v:g}" for k, v in w) or "none") for w, name in found.items())
+            described = "; ".join(f"suite {name!r}: " + (", ".join(f"{k}={v:g}" for k, v in w.items()) or "none")
+                                  for name, w in found.values())
             raise StridewiseError(f"the runs of machine {machine} weight the kernel mix differently ({described}); "
                                   "give one with --mix, e.g. --mix varcoef=1,advection=2")
-        return dict(next(iter(found))) if found else {}
+        return next(iter(found.values()))[1] if found else {}
 
 
 def load_runs(paths: list[str]) -> Runs:
@@ -216,7 +217,7 @@ def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | N
     key = rounds.name if rounds is not None else ""
     frame = frame.assign(**metrics.ranked_figures(frame, rounds, probes, options.reference, key, options.confidence))
     frame["schedule_limited"] = metrics.schedule_limited(frame)
-    return frame.drop(columns=["traffic_bytes", "flops", "footprint_bytes"])
+    return frame
 
 
 @dataclass

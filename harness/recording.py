@@ -28,8 +28,8 @@ def drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progress
             threads = str(payload["threads"])
             metadata["workers"][threads] = payload
             store.write_metadata(metadata)
-        elif kind == "roof":
-            metadata["workers"][threads]["roof"] = payload
+        elif kind in ("roof", "compute_roof"):
+            metadata["workers"][threads][kind] = payload
             store.write_metadata(metadata)
         elif kind == "start":
             current = payload

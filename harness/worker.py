@@ -81,6 +81,15 @@ def start_worker(plan: WorkerPlan) -> dict[str, Any]:
     }
 
 
+def compute_ceilings(threads: int, dtypes: list[str]) -> dict[str, dict[str, Any]]:
+    """The FMA ceiling (``harness.compute_roof``) per dtype, at this worker's thread count."""
+    from harness import compute_roof
+    from harness.machine import numba_target, usable_cores
+
+    features = numba_target()["features"]
+    return {dt: compute_roof.measure(threads, dt, features, usable_cores()).as_dict() for dt in dtypes}
+
+
 def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
     import numpy as np
 
@@ -91,6 +100,7 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
     queue.put(("worker", start_worker(plan)))
     if plan.timing.roof:
         queue.put(("roof", measure_curve(plan.threads, plan.timing.roof_max_bytes).as_dict()))
+        queue.put(("compute_roof", compute_ceilings(plan.threads, sorted({g.dtype for g in plan.groups}))))
     flush = None
     if plan.timing.cold_cache:
         flush_buf = np.zeros(plan.flush_bytes // 8, dtype=np.int64)

@@ -9,10 +9,11 @@ import sys
 from typing import Any
 
 from harness import machine
+from harness.compute_roof import describe_ceiling
 from harness.processes import ChildError, environment, receive
 from harness.roof import MAX_FOOTPRINT, MIN_FOOTPRINT, RoofCurve
 from harness.tables import render
-from harness.worker import worker_environment
+from harness.worker import compute_ceilings, worker_environment
 from kernels.errors import StridewiseError
 
 #: Longest wait for one thread count's curve (a 1 GiB curve takes well under a minute here).
@@ -43,7 +44,7 @@ def _measure(threads: int, max_bytes: int, out: Any) -> None:
     from harness.roof import measure_curve
 
     numba.set_num_threads(threads)
-    out.put(measure_curve(threads, max_bytes).as_dict())
+    out.put((measure_curve(threads, max_bytes).as_dict(), compute_ceilings(threads, ["float64"])["float64"]))
 
 
 def run_roof(args: argparse.Namespace) -> int:
@@ -61,14 +62,16 @@ def run_roof(args: argparse.Namespace) -> int:
     if not MIN_FOOTPRINT <= max_bytes <= MAX_FOOTPRINT:
         raise StridewiseError(f"--max-bytes must be between 16KiB (the smallest triad footprint) and 1TiB, got {args.max_bytes}")
     ctx = multiprocessing.get_context("spawn")
-    curves = []
+    curves, ceilings = [], []
     for threads in counts:  # one fresh process per thread count, like the sweep's workers
         q = ctx.Queue()
         with environment(worker_environment(threads, "default", False)):
             proc = ctx.Process(target=_measure, args=(threads, max_bytes, q), daemon=True)
             proc.start()
         try:
-            curves.append(RoofCurve.from_dict(receive(q, proc, ROOF_TIMEOUT_S, f"roof at {threads} thread(s)")))
+            curve, ceiling = receive(q, proc, ROOF_TIMEOUT_S, f"roof at {threads} thread(s)")
+            curves.append(RoofCurve.from_dict(curve))
+            ceilings.append(ceiling)
         except ChildError as exc:
             print(f"stridewise: {exc}", file=sys.stderr)
             return 1
@@ -78,9 +81,10 @@ def run_roof(args: argparse.Namespace) -> int:
         for fp, bw in zip(curve.footprints, curve.bandwidths):
             records.append({"threads": curve.threads, "footprint_MiB": fp / 2**20, "GB/s": bw / 1e9})
     print(render(records, args.format, floatfmt=".4g"), end="")
-    for curve in curves:
+    for curve, ceiling in zip(curves, ceilings):
         knees = ", ".join(f"{k / 2**20:.3g} MiB" for k in curve.knees()) or "none"
-        print(f"{curve.threads} thread(s): memory roof {curve.memory_roof() / 1e9:.1f} GB/s; knees after {knees}", file=sys.stderr)
+        print(f"{curve.threads} thread(s): memory roof {curve.memory_roof() / 1e9:.1f} GB/s; knees after {knees}; "
+              f"{describe_ceiling(ceiling)}", file=sys.stderr)
     if args.plot:
         from harness.plots import plot_roof
 
