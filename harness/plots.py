@@ -158,7 +158,7 @@ def _roofline(ranking: Any, directory: str, written: list[str]) -> None:
 
 
 def _forest(ranking: Any, directory: str, written: list[str]) -> None:
-    from matplotlib.ticker import FuncFormatter, LogLocator
+    from matplotlib.ticker import FixedLocator, FuncFormatter
 
     plt = _pyplot()
     data = pictures.forest(ranking)
@@ -179,7 +179,7 @@ def _forest(ranking: Any, directory: str, written: list[str]) -> None:
                 ax.errorbar(v, y, xerr=[v - kg["speedup_vs_reference_lo"], kg["speedup_vs_reference_hi"] - v], fmt="o", ms=3, capsize=2)
                 ax.axvline(1.0, color="grey", ls="--", lw=1)
                 ax.set_xscale("log")
-                ax.xaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))
+                ax.xaxis.set_major_locator(FixedLocator([0.1, 0.2, 0.3, 0.5, 0.7, 0.8, 0.9, 1, 1.1, 1.25, 1.5, 2, 3, 5]))
                 ax.xaxis.set_major_formatter(FuncFormatter(lambda x, _: f"{x:g}"))
                 ax.xaxis.set_minor_formatter(FuncFormatter(lambda x, _: ""))
                 ax.tick_params(labelsize=6)

@@ -24,7 +24,7 @@ FLAG_NOTES = {
              "writes a smaller share of its bytes than the triad's 1 in 3 pays less of it than the triad does; "
              "where the interval includes 100 the excess is within noise.",
     "overhead-bound": f"`overhead-bound`: the median is under {OVERHEAD_MULTIPLE:g}x the empty kernel's dispatch and "
-                      "fork/join time.",
+                      "fork/join time (the median over the group's cases, so one disturbed measurement moves it little).",
     "scalar": "`scalar`: the compiled code has no packed vector instructions.",
     "short-trip": "`short-trip`: the compiled code has packed vector instructions, but the inner loop that ran "
                   "is shorter than one vector of them (its trip count is in `vector_trip`), so the path that ran was scalar.",
@@ -147,6 +147,20 @@ def _group_table(grp: pd.DataFrame) -> tuple[str, list[str]]:
     return tabulate(rows, headers=TABLE_COLUMNS, tablefmt="github", disable_numparse=True), used
 
 
+def _overhead_note(cases: pd.DataFrame, key: tuple) -> str:
+    """The robust empty-kernel time behind the overhead-bound flags of a group, with its spread."""
+    from harness.metrics import group_overhead
+
+    mine = cases[(cases[["machine", "kernel", "grid", "dtype", "threads"]] == pd.Series(dict(zip(
+        ["machine", "kernel", "grid", "dtype", "threads"], key)))).all(axis=1)]
+    stats = group_overhead(mine.to_dict("records")).get("parallel")
+    if stats is None:
+        return "Empty-kernel time: not recorded for this group."
+    return (f"Empty-kernel time of this group (dispatch and fork/join): median {stats['median_ns'] / 1e3:.1f} µs over its "
+            f"{stats['cases']} cases (quartiles {stats['q25_ns'] / 1e3:.1f}-{stats['q75_ns'] / 1e3:.1f} µs, largest "
+            f"{stats['max_ns'] / 1e3:.1f} µs); `overhead-bound` marks medians under {OVERHEAD_MULTIPLE:g}x the median.")
+
+
 def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     opts = r.options
     out = [f"# {title}", ""]
@@ -186,6 +200,8 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
         inversion = _inversions(grp)
         if inversion:
             out += ["", inversion]
+        if grp["overhead_bound"].any():
+            out += ["", _overhead_note(r.runs.cases, key)]
         out.append("")
     notes = [FLAG_NOTES[f] for f in FLAG_NOTES if f in flags_used]
     if notes:
