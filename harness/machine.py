@@ -71,6 +71,26 @@ def smt_siblings() -> list[str]:
     return sorted(g for g in groups if g)
 
 
+def _cpu_set(text: str) -> set[int]:
+    """CPUs of a kernel list such as '0,4' or '0-3'."""
+    out: set[int] = set()
+    for part in text.split(","):
+        lo, _, hi = part.strip().partition("-")
+        if lo.isdigit():
+            out.update(range(int(lo), int(hi if hi.isdigit() else lo) + 1))
+    return out
+
+
+def usable_physical_cores() -> int:
+    """Physical cores this process may use: SMT sibling groups meeting its affinity, capped by
+    ``usable_cores`` (threads beyond this share a core's pipes and caches)."""
+    cpus = set(usable_cpu_list())
+    groups = [_cpu_set(g) for g in smt_siblings()]
+    if not cpus or not groups:
+        return usable_cores()
+    return max(1, min(usable_cores(), sum(1 for g in groups if g & cpus)))
+
+
 def caches() -> list[dict[str, Any]]:
     """Caches of CPU 0 as the OS reports them (on a virtual machine these may be the host's)."""
     out = []
@@ -118,6 +138,17 @@ def governor() -> dict[str, Any]:
         "cur_khz": int(cur) if cur else None,
         "max_khz": int(_read(f"{base}/cpuinfo_max_freq") or 0) or None,
     }
+
+
+def numa_note(fingerprint: dict[str, Any]) -> str | None:
+    """The first-touch limitation, on a machine with several NUMA nodes (None on one node)."""
+    nodes = fingerprint.get("numa_nodes") or []
+    if len(nodes) < 2:
+        return None
+    return (f"This machine has {len(nodes)} NUMA nodes. Buffers are first-touched in equal contiguous blocks of "
+            "their bytes, one per thread, not in each kernel's own work split (cyclic rows, strips across "
+            "z-planes): a thread may find part of its work on another node's memory, so multi-threaded "
+            "times include remote accesses that a code first-touching with its own schedule would not pay.")
 
 
 def governor_warning(info: dict[str, Any]) -> str | None:
@@ -170,6 +201,7 @@ def fingerprint() -> dict[str, Any]:
         "physical_cores": len(smt_siblings()) or None,
         "smt_siblings": smt_siblings(),
         "usable_cores": usable_cores(),
+        "usable_physical_cores": usable_physical_cores(),
         "affinity": sorted(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else None,
         "caches": caches(),
         "numa_nodes": numa,

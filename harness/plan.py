@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from harness.cases import ARROW, CONVERT, CaseKey, CaseKind, Group
 from harness.suite import Suite
 from kernels.grid import Extents
@@ -89,4 +91,34 @@ def working_set_warnings(groups: list[Group], suite: Suite, l2_bytes: int | None
                 lines.append(f"{case.kernel}/{case.schedule} at {case.grid} {case.dtype}: a thread's working set is about "
                              f"{need / 1024:.0f} KiB, above this machine's {l2_bytes / 1024:.0f} KiB L2; its timing includes L2 misses"
                              + (" (a smaller strip_width in kernels.options fits)" if dict(schedule.params).get("width") else ""))
+    return lines
+
+
+#: The smallest attainable Holm p of a group's first tier step must sit this many times under
+#: alpha: a contrary round of the smallest rank doubles the exact one-sided signed-rank p, so a
+#: floor near alpha lets a single such round undo every separation. 32 leaves room for five.
+POWER_MARGIN = 32
+
+
+def power_warnings(groups: list[Group], suite: Suite, alpha: float = 0.05) -> list[str]:
+    """One line per kernel group whose rounds cannot separate its layouts with a margin: with n
+    reporting rounds (half the measured ones, over every repetition) and m = layouts - 1
+    comparisons, the smallest Holm p is m x 2**-n (exact Wilcoxon, every round one way)."""
+    timing = suite.timing
+    level = alpha / timing.max_looks()
+    n = timing.min_repeats * max(timing.repetitions, 1) // 2
+    lines, seen = [], set()
+    for group in groups:
+        layouts = {c.layout for c in group.cases}
+        m = len(layouts) - 1
+        key = (group.kernel, m)
+        if group.kind != CaseKind.KERNEL or m < 1 or key in seen:
+            continue
+        seen.add(key)
+        floor = m * 2.0**-n
+        if floor > level / POWER_MARGIN:
+            needed = -(-2 * math.ceil(math.log2(m * POWER_MARGIN / level)) // max(timing.repetitions, 1))
+            lines.append(f"{group.kernel}: {n} reporting rounds for {m + 1} layouts can reach a Holm p of {floor:.2g} at best, "
+                         f"not well under alpha {level:.3g} (a single contrary round could undo a separation); set "
+                         f"timing.min_repeats to at least {needed}")
     return lines

@@ -211,6 +211,7 @@ def _finish(frame: pd.DataFrame, rounds: Rounds | None, probes: pd.DataFrame | N
     frame["vectorised"] = [c.get("vectorised") for c in case]
     frame["vector_code"] = [c.get("vector_code") for c in case]
     frame["vector_trip"] = [c.get("vector_trip") for c in case]
+    frame["oversubscribed"] = [c.get("oversubscribed") is True for c in case]
     frame["plain"] = frame["layout"].map(is_plain)
     frame = frame.sort_values(["tier", "reported_median_ns"], na_position="last").reset_index(drop=True)
     frame["rank"] = np.arange(1, len(frame) + 1)

@@ -12,17 +12,22 @@ from harness.roof import RoofCurve
 from harness.store import RunStore
 
 
-def drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progress: Any) -> str | None:
-    """Receive one worker's messages until it exits; write each finished group at once."""
+def drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progress: Any, rounds_done: Any = None) -> str | None:
+    """Receive one worker's messages until it exits; write each finished group at once. The round
+    count of the group being timed is polled from ``rounds_done`` (shared memory) twice a second."""
     threads = str(None)
     crash = None
     current = ""
+    shown = 0
     while True:
         try:
             kind, payload = q.get(timeout=0.5)
         except queue_module.Empty:
             if not proc.is_alive():
                 return crash or f"worker exited with status {proc.exitcode} without reporting"
+            if rounds_done is not None and current and rounds_done.value != shown:
+                shown = rounds_done.value
+                progress.set_postfix_str(f"{current} round {shown}")
             continue
         if kind == "worker":
             threads = str(payload["threads"])
@@ -32,10 +37,8 @@ def drain(q: Any, proc: Any, store: RunStore, metadata: dict[str, Any], progress
             metadata["workers"][threads][kind] = payload
             store.write_metadata(metadata)
         elif kind == "start":
-            current = payload
+            current, shown = payload, 0
             progress.set_postfix_str(current)
-        elif kind == "round":
-            progress.set_postfix_str(f"{current} round {payload}")
         elif kind == "group":
             record_group(payload, store, metadata)
             progress.update(sum(1 for r in payload["records"] if CaseKind.of(r["kernel"]) is not CaseKind.PROBE))
@@ -65,12 +68,16 @@ def record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, An
         if CaseKind.of(rec["kernel"]) is CaseKind.PROBE and ns:
             probes.append((rec["footprint_bytes"], probe_best_bandwidth(ns, rec["traffic_bytes"])))
     probe_curve = RoofCurve(result["threads"], *map(tuple, zip(*sorted(probes)))) if probes else roof
+    fp = metadata.get("fingerprint") or {}
+    cores = fp.get("usable_physical_cores") or fp.get("usable_cores")
+    oversubscribed = bool(cores) and result["threads"] > cores
     cases = []
     overhead = group_overhead([r for r in result["records"] if CaseKind.of(r["kernel"]) is not CaseKind.PROBE])
     for rec in result["records"]:
         row = case_statistics(rec, by_case.get(rec["case_id"], []), probe_curve, result["harness_overhead_ns"], overhead)
         row["order_seed"] = result["order_seed"]
         row["repetition"] = result["repetition"]
+        row["oversubscribed"] = oversubscribed
         cases.append(row)
     store.append(cases, samples)
     metadata["groups"][result["group"]] = {
@@ -79,6 +86,8 @@ def record_group(result: dict[str, Any], store: RunStore, metadata: dict[str, An
         "harness_overhead_ns": result["harness_overhead_ns"],
         "timer_overhead_ns": result["timer_overhead_ns"],
         "flush_ns": result["flush_ns"],
+        "sibling_evictions": result.get("sibling_evictions", 0),
+        "oversubscribed": oversubscribed,
         "empty_kernel": overhead,
         "order_seed": result["order_seed"],
     }

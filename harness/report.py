@@ -10,6 +10,7 @@ import pandas as pd
 from tabulate import tabulate
 
 from harness.intervals import Interval
+from harness.machine import numa_note
 from harness.metrics import OVERHEAD_MULTIPLE, SCHEDULE_LIMITED_PCT
 from harness.rank import Ranking
 from harness.report_parts import failed_section, fmt_interval, fmt_number, mix_section, repetition_section, scaling_section
@@ -28,6 +29,8 @@ FLAG_NOTES = {
     "scalar": "`scalar`: the compiled code has no packed vector instructions.",
     "short-trip": "`short-trip`: the compiled code has packed vector instructions, but the inner loop that ran "
                   "is shorter than one vector of them (its trip count is in `vector_trip`), so the path that ran was scalar.",
+    "oversubscribed": "`oversubscribed`: more threads than the run's usable physical cores, so threads shared a core; "
+                      "left out of thread scaling.",
     "schedule-limited": "`schedule-limited`: outside tier 1, and even the upper end of its `% roof` interval is under "
                         f"{SCHEDULE_LIMITED_PCT:g}%: every layout moves the same compulsory bytes, so this gap is the code that "
                         "ran for the order (its best schedule), not the order's memory traffic; a better schedule may close it.",
@@ -115,6 +118,9 @@ def _machine_header(machine: str, md: RunMetadata) -> list[str]:
             f"Compiled {comp.get('compiled', 0)} specialisations in {comp.get('compile_seconds', 0):.1f} s, "
             f"loaded {comp.get('loaded', 0)} from cache."
         )
+    note = numa_note(fp)
+    if note:
+        lines.append(note)
     return lines
 
 
@@ -136,6 +142,8 @@ def _group_table(grp: pd.DataFrame) -> tuple[str, list[str]]:
             flags.append(vector_flag(e))
         if e.get("above_roof"):
             flags.append(">roof")
+        if e.get("oversubscribed"):
+            flags.append("oversubscribed")
         if e.get("schedule_limited"):
             flags.append("schedule-limited")
         used += flags
@@ -224,7 +232,7 @@ EXPORT_COLUMNS = [
     "pct_roof", "pct_roof_lo", "pct_roof_hi", "above_roof", "gflops",
     "time_vs_best", "time_vs_best_lo", "time_vs_best_hi",
     "speedup_vs_reference", "speedup_vs_reference_lo", "speedup_vs_reference_hi",
-    "overhead_bound", "schedule_limited", "vectorised", "vector_code", "vector_trip", "plain", "rounds",
+    "overhead_bound", "schedule_limited", "vectorised", "vector_code", "vector_trip", "oversubscribed", "plain", "rounds",
 ]
 SCALING_EXPORT = ["speedup", "speedup_lo", "speedup_hi", "efficiency", "efficiency_lo", "efficiency_hi"]
 

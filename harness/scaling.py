@@ -27,8 +27,11 @@ def _speedup(r1: Rounds, a: str, rt: Rounds, b: str, key: str, confidence: float
 
 def scaling_and_flips(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds], options: Any) -> tuple[pd.DataFrame, list[str]]:
     """Per layout and thread count: speedup over 1 thread, efficiency and the ratio to the best
-    1-thread parallel=False build, each with an interval; and one sentence per kernel on flips."""
+    1-thread parallel=False build, each with an interval; and one sentence per kernel on flips.
+    Oversubscribed thread counts (more threads than physical cores) are left out."""
     rows, flips = [], []
+    if "oversubscribed" in table:  # threads sharing a core measure the sharing, not the scaling
+        table = table[~table["oversubscribed"].astype(bool)]
     for (machine, kernel, grid, dtype), grp in table.groupby(["machine", "kernel", "grid", "dtype"], sort=False):
         one_key = (machine, kernel, grid, dtype, 1)
         r1 = rounds.get(one_key)

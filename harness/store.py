@@ -32,9 +32,10 @@ CASE_COLUMNS = [
     "compile_s", "loaded_from_cache", "vectorised", "vector_bits", "order_seed",
 ]
 #: Columns added after the first format; a reader fills them in when an older run lacks them.
-OPTIONAL_COLUMNS = {"repetition": 0, "version": "", "group_overhead_ns": None, "vector_code": None, "vector_trip": None}
+OPTIONAL_COLUMNS = {"repetition": 0, "version": "", "group_overhead_ns": None, "vector_code": None, "vector_trip": None,
+                    "oversubscribed": None}
 #: Columns holding True, False or nothing; read back as Python booleans or None (CSV holds text).
-BOOLEAN_COLUMNS = ("overhead_bound", "loaded_from_cache", "vectorised", "vector_code")
+BOOLEAN_COLUMNS = ("overhead_bound", "loaded_from_cache", "vectorised", "vector_code", "oversubscribed")
 
 
 @dataclass(frozen=True)

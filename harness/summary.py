@@ -6,6 +6,7 @@ import pandas as pd
 from tabulate import tabulate
 
 from harness.cases import CaseKind, of_kind
+from harness.machine import numa_note
 from harness.report_parts import failed_section, fmt_number
 from harness.store import RunMetadata, vector_flag
 
@@ -26,6 +27,8 @@ def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
             f"Compiled {comp.get('compiled', 0)} specialisations in {comp.get('compile_seconds', 0):.1f} s; "
             f"loaded {comp.get('loaded', 0)} from cache in {comp.get('load_seconds', 0):.1f} s."
         )
+    if numa_note(fp):
+        lines.append(numa_note(fp))
     for threads, info in sorted(metadata.workers.items(), key=lambda kv: int(kv[0])):
         roof = info.get("roof", {}).get("memory_roof_bytes_per_s")
         roof_text = f", memory roof {roof / 1e9:.1f} GB/s" if roof else ""
@@ -43,6 +46,8 @@ def render_summary(cases: pd.DataFrame, metadata: RunMetadata) -> str:
                 flags.append("overhead-bound")
             if vector_flag(r):
                 flags.append(vector_flag(r))
+            if r.get("oversubscribed") is True:
+                flags.append("oversubscribed")
             rows.append(
                 [
                     r["layout"], r["schedule"], r["build"], fmt_number(r["median_ns"] / 1e6, ".3f"),

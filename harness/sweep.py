@@ -13,7 +13,7 @@ from typing import Any
 
 from harness import machine
 from harness.cases import CaseKind, Group, of_kind
-from harness.plan import group_bytes, plan, working_set_warnings
+from harness.plan import group_bytes, plan, power_warnings, working_set_warnings
 from harness.processes import EXIT_INTERRUPTED, StopRequest, environment
 from kernels.errors import StridewiseError
 from harness.store import RunMetadata, RunStore, RunStoreError
@@ -94,13 +94,16 @@ def run_sweep(
         metadata = {}
     usable = machine.usable_cores()
     counts = suite.thread_counts(usable)
+    physical = machine.usable_physical_cores()
     for count in counts:
-        if count > usable:
-            print(f"stridewise: warning: {count} threads exceed the {usable} usable cores; the worker's thread cap is "
-                  f"raised to {count}, and its threads will share cores", file=sys.stderr)
+        if count > physical:
+            print(f"stridewise: warning: {count} threads exceed the {physical} usable physical cores"
+                  + (f"; the worker's thread cap is raised to {count}" if count > usable else "")
+                  + ", and its threads will share cores (its cases are flagged oversubscribed and left out of thread "
+                  "scaling)", file=sys.stderr)
     groups = plan(suite, counts)
     check_memory(groups, suite)
-    for line in working_set_warnings(groups, suite, machine.private_cache_bytes(2)):
+    for line in power_warnings(groups, suite) + working_set_warnings(groups, suite, machine.private_cache_bytes(2)):
         print(f"stridewise: warning: {line}", file=sys.stderr)
     gov = machine.governor_warning(fingerprint["cpufreq"])
     if gov:
@@ -147,10 +150,13 @@ def run_sweep(
             flush_bytes=flush_bytes,
         )
         q = ctx.Queue()
-        proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event), daemon=True)
+        # Rounds done, in shared memory: a queue message per round woke the worker's feeder thread
+        # and the parent's progress bar just as the next round's first kernel started.
+        rounds_done = ctx.Value("q", 0, lock=False)
+        proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event, rounds_done), daemon=True)
         with environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
             proc.start()
-        crash = drain(q, proc, store, metadata, progress)
+        crash = drain(q, proc, store, metadata, progress, rounds_done)
         proc.join()
         return crash
 

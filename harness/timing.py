@@ -25,6 +25,7 @@ class GroupSamples:
     harness_overhead_ns: float = 0.0  # median per-sample time spent outside the kernel call
     flush_ns: float = 0.0  # median per-sample cold-cache eviction time (0 when off)
     looks: int = 1  # times the adaptive rule was consulted (1: never extended)
+    sibling_evictions: int = 0  # samples preceded by a case on the same buffers, so evicted first
 
 
 def _measure(call: Callable[[], Any]) -> int:
@@ -44,6 +45,8 @@ def sample_rounds(
     first_round: int = 0,
     wants_more: Callable[[list[tuple[str, int, int, str, int]]], bool] | None = None,
     measure: Callable[[Callable[[], Any]], int] = _measure,
+    buffers: dict[str, str] | None = None,
+    evict: Callable[[], Any] | None = None,
 ) -> GroupSamples:
     """Warm-up rounds, then measured rounds until every case has ``min_repeats`` samples and at
     least ``min_seconds`` of measured time (or ``max_rounds``). Raises Interrupted on stop.
@@ -51,6 +54,11 @@ def sample_rounds(
     ``before_sample`` runs before every sample (cache eviction), ``prepare[case]`` before each
     sample of that case (restoring inputs it overwrites); neither is inside the timed region.
     Round ids start at ``first_round`` (repetitions of a group get disjoint ids).
+
+    ``buffers[case]`` names the buffers a case works on (cases of one layout share them). A sample
+    whose predecessor (in this round, or the last of the previous one) worked on the same buffers
+    would find them warm in cache, a bonus no other sample gets; ``evict`` runs before it, outside
+    the timed region. With ``before_sample`` every sample is evicted anyway.
 
     Adaptive effort: when ``timing.max_seconds`` > 0 and ``wants_more`` is given, the stopping
     point is a look: ``wants_more(rows)`` decides whether to double the measured rounds, as long
@@ -71,6 +79,7 @@ def sample_rounds(
     target = timing.min_repeats
     out.looks = 1
     started = time.perf_counter_ns()
+    previous: str | None = None
     while True:
         phase = "warmup" if total_rounds < timing.warmup else "measure"
         rng.shuffle(ids)
@@ -78,12 +87,18 @@ def sample_rounds(
         kernel_ns = 0
         flush_ns = 0
         for position, case_id in enumerate(ids):
-            if before_sample is not None or case_id in prepare:
+            sibling = (evict is not None and before_sample is None and buffers is not None and previous is not None
+                       and buffers.get(case_id) is not None and buffers.get(case_id) == buffers.get(previous))
+            previous = case_id
+            if before_sample is not None or case_id in prepare or sibling:
                 f0 = time.perf_counter_ns()
                 if case_id in prepare:
                     prepare[case_id]()
                 if before_sample is not None:
                     before_sample()
+                if sibling:
+                    evict()  # type: ignore[misc]
+                    out.sibling_evictions += 1
                 flush_ns += time.perf_counter_ns() - f0
             ns = measure(calls[case_id])
             kernel_ns += ns

@@ -43,12 +43,13 @@ def worker_environment(threads: int, layer: str, pin: bool) -> dict[str, str]:
     return env
 
 
-def worker_main(plan: WorkerPlan, queue: Any, stop: Any) -> None:
-    """Entry point of the spawned process."""
+def worker_main(plan: WorkerPlan, queue: Any, stop: Any, rounds_done: Any) -> None:
+    """Entry point of the spawned process. ``rounds_done`` (a shared-memory integer) counts the
+    current group's finished rounds: nothing crosses the process boundary inside a group's rounds."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides when to stop, via ``stop``
     signal.signal(signal.SIGTERM, signal.SIG_IGN)
     try:
-        _run(plan, queue, stop)
+        _run(plan, queue, stop, rounds_done)
     except BaseException:  # noqa: BLE001 - reported to the parent, which records it
         queue.put(("crash", traceback.format_exc()))
     finally:
@@ -90,7 +91,7 @@ def compute_ceilings(threads: int, dtypes: list[str]) -> dict[str, dict[str, Any
     return {dt: compute_roof.measure(threads, dt, features, usable_cores()).as_dict() for dt in dtypes}
 
 
-def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
+def _run(plan: WorkerPlan, queue: Any, stop: Any, rounds_done: Any) -> None:
     import numpy as np
 
     from harness.roof import measure_curve
@@ -101,10 +102,9 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
     if plan.timing.roof:
         queue.put(("roof", measure_curve(plan.threads, plan.timing.roof_max_bytes).as_dict()))
         queue.put(("compute_roof", compute_ceilings(plan.threads, sorted({g.dtype for g in plan.groups}))))
-    flush = None
-    if plan.timing.cold_cache:
-        flush_buf = np.zeros(plan.flush_bytes // 8, dtype=np.int64)
-        flush = lambda: evict_caches(flush_buf)  # noqa: E731
+    flush_buf = np.ones(plan.flush_bytes // 8, dtype=np.int64)  # also evicts after a same-buffers sibling
+    evict = lambda: evict_caches(flush_buf)  # noqa: E731
+    flush = evict if plan.timing.cold_cache else None
 
     seen_reports: dict[str, dict[str, Any]] = {}
     for group in plan.groups:
@@ -112,11 +112,19 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any) -> None:
             break
         queue.put(("start", group.label))
         try:
-            result = _run_group(group, plan, stop, flush, seen_reports, queue)
+            rounds_done.value = 0
+            result = _run_group(group, plan, stop, flush, seen_reports, rounds_done, evict)
         except Interrupted:
             queue.put(("interrupted", group.label))
             break
         queue.put(("group", result))
+
+
+def shared_buffers(records: dict[str, dict[str, Any]], calls: dict[str, Any]) -> dict[str, str]:
+    """Which buffers each timed kernel case works on: the cases of one layout share one problem
+    (every schedule and build); conversions and probes have buffers of their own."""
+    return {cid: f"{r['kernel']}|{r['layout']}" for cid, r in records.items()
+            if cid in calls and CaseKind.of(r["kernel"]) is CaseKind.KERNEL}
 
 
 def context(plan: WorkerPlan, seen_reports: dict[str, dict[str, Any]], restore_inputs: bool = False) -> Context:
@@ -125,7 +133,8 @@ def context(plan: WorkerPlan, seen_reports: dict[str, dict[str, Any]], restore_i
                    restore_inputs)
 
 
-def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, queue: Any) -> dict[str, Any]:
+def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_reports: dict, rounds_done: Any,
+               evict: Any = None) -> dict[str, Any]:
     from harness.timing import overhead_ns, sample_rounds
 
     prepared = prepare_group(group, context(plan, seen_reports))
@@ -145,10 +154,12 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
         random.Random(seed),
         stop.is_set,
         before_sample=flush,
-        on_round=lambda r: queue.put(("round", r)),
+        on_round=lambda r: setattr(rounds_done, "value", r),  # a store to shared memory: no message, no syscall
         prepare=prepare,
         first_round=group.repetition * REPETITION_ROUNDS,
         wants_more=wants_more,
+        buffers=shared_buffers(records, calls),
+        evict=evict,
     )
     return {
         "group": group.label,
@@ -161,6 +172,7 @@ def _run_group(group: Group, plan: WorkerPlan, stop: Any, flush: Any, seen_repor
         "harness_overhead_ns": sampled.harness_overhead_ns,
         "timer_overhead_ns": overhead_ns(_noop, repeats=1001),
         "flush_ns": sampled.flush_ns,
+        "sibling_evictions": sampled.sibling_evictions,
         "order_seed": seed,
         "compiles": compiles,
         "finished": time.time(),

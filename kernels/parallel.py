@@ -57,13 +57,13 @@ def _copy_blocks(dst, src, nchunks):  # type: ignore[no-untyped-def]
 
 
 def _sweep_buffer(buf, nchunks):  # type: ignore[no-untyped-def]
-    """Read and write every cache line of ``buf`` (int64 words), each thread its own block."""
+    """Read every cache line of ``buf`` (int64 words), each thread its own block. Read only: a
+    sweep that wrote would leave its own dirty lines for the next timed kernel to write back."""
     n = buf.shape[0]
     total = 0
     for t in prange(nchunks):
         lo, hi = chunk(n, nchunks, t)
         for i in range(lo, hi, 8):
-            buf[np.uintp(i)] += 1
             total += buf[np.uintp(i)]
     return total
 
@@ -86,5 +86,7 @@ def parallel_copy(dst: np.ndarray, src: np.ndarray) -> None:
 
 
 def evict_caches(buf: np.ndarray) -> int:
-    """Touch every line of a large int64 buffer on every thread, pushing kernel data out of cache."""
+    """Read every line of a large int64 buffer (at least twice the last-level cache) on every
+    thread, pushing kernel data out of cache; the kernel's dirty lines are written back here,
+    outside any timed region."""
     return int(SWEEP.parallel(buf, thread_count()))

@@ -149,3 +149,13 @@ def test_every_picture_of_a_ranking_is_written_as_a_png(tmp_path) -> None:
     for path in paths:  # PNG signature: W3C PNG specification, section 5.2
         with open(path, "rb") as fh:
             assert fh.read(8) == b"\x89PNG\r\n\x1a\n"
+
+
+def test_oversubscribed_thread_counts_are_left_out_of_scaling() -> None:
+    from harness.scaling import scaling_and_flips
+
+    ranking = _ranking()
+    assert 2 in set(ranking.scaling["threads"])
+    table = ranking.table.assign(oversubscribed=ranking.table["threads"] == 2)
+    scaling, _ = scaling_and_flips(table, ranking.rounds, ranking.options)
+    assert set(scaling["threads"]) == {1}

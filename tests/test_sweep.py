@@ -239,6 +239,10 @@ def test_more_threads_than_cores_warns_then_runs(tmp_path: Path) -> None:
     assert proc.returncode == 0, proc.stderr
     assert f"{too_many} threads exceed" in proc.stderr
     assert RunStore(out).metadata()["workers"][str(too_many)]["numba_num_threads"] == too_many
+    # Not only a warning: every case of the group is flagged, in cases.csv and the summary.
+    cases = RunStore(out).cases()
+    assert cases["oversubscribed"].eq(True).all()
+    assert "oversubscribed" in (out / "summary.md").read_text()
 
 
 @pytest.mark.slow

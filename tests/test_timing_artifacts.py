@@ -1,0 +1,108 @@
+"""The harness must not add its own noise or bias: nothing crosses the process boundary inside a
+group's rounds, no sample inherits a sibling's warm buffers, cold mode leaves no dirty lines."""
+
+from __future__ import annotations
+
+import random
+import types
+
+import numpy as np
+
+from harness.plan import plan
+from harness.sampling import Timing
+from harness.suite import load_suite
+from harness.timing import sample_rounds
+from harness.worker import WorkerPlan, _run_group, shared_buffers
+from kernels.parallel import evict_caches
+
+
+def test_a_sample_after_a_case_on_the_same_buffers_is_evicted_first_and_no_other() -> None:
+    order: list[str] = []
+    calls = {c: (lambda c=c: order.append(c)) for c in "abcde"}
+    buffers = {"a": "L1", "b": "L1", "c": "L1", "d": "L2"}  # e: buffers of its own (a probe)
+    out = sample_rounds(calls, Timing(warmup=1, min_repeats=40, min_seconds=0.0), random.Random(3), lambda: False,
+                        buffers=buffers, evict=lambda: order.append("evict"))
+    previous, evicted_before = None, False
+    expected = 0
+    for item in order:
+        if item == "evict":
+            evicted_before = True
+            continue
+        shares = previous is not None and buffers.get(item) is not None and buffers.get(item) == buffers.get(previous)
+        assert evicted_before == shares, (previous, item)
+        expected += shares
+        previous, evicted_before = item, False
+    assert out.sibling_evictions == expected > 10  # 3 of 5 cases share buffers: many adjacent pairs in 41 rounds
+
+
+def test_cold_mode_evicts_every_sample_and_no_sibling_twice() -> None:
+    order: list[str] = []
+    calls = {c: (lambda c=c: order.append(c)) for c in "ab"}
+    sample_rounds(calls, Timing(warmup=0, min_repeats=5, min_seconds=0.0), random.Random(0), lambda: False,
+                  before_sample=lambda: order.append("flush"), buffers={"a": "L", "b": "L"}, evict=lambda: order.append("evict"))
+    assert "evict" not in order and order.count("flush") == 10
+
+
+def test_the_eviction_sweep_only_reads() -> None:
+    buf = np.arange(1 << 16, dtype=np.int64)
+    before = buf.copy()
+    total = evict_caches(buf)
+    assert np.array_equal(buf, before)  # a sweep that wrote would leave dirty lines for the next kernel
+    assert total == int(before[::8].sum())  # every cache line (8 int64 words) read once
+
+
+def test_kernel_cases_of_one_layout_share_buffers_and_others_do_not() -> None:
+    records = {
+        "k|s1|parallel|A": {"kernel": "laplacian", "layout": "A"}, "k|s2|serial|A": {"kernel": "laplacian", "layout": "A"},
+        "k|s1|parallel|B": {"kernel": "laplacian", "layout": "B"}, "triad|p": {"kernel": "triad", "layout": "1024B"},
+        "convert|rows|A->B": {"kernel": "convert", "layout": "A->B"}, "k|bad|parallel|A": {"kernel": "laplacian", "layout": "A"},
+    }
+    calls = {cid: None for cid in records if "bad" not in cid}  # a failed case is never timed
+    owners = shared_buffers(records, calls)
+    assert owners == {"k|s1|parallel|A": "laplacian|A", "k|s2|serial|A": "laplacian|A", "k|s1|parallel|B": "laplacian|B"}
+
+
+def test_a_group_reports_its_rounds_through_shared_memory_only() -> None:
+    """The worker used to put a message on the parent's queue after every round; its feeder thread
+    and the parent's progress update then ran beside the next round's first kernel. Now the group
+    runner gets no queue at all: a round count in shared memory is all the parent sees."""
+    suite = load_suite("smoke")
+    group = next(g for g in plan(suite, (1,)) if g.kernel == "laplacian")
+    timing = Timing(warmup=0, min_repeats=3, min_seconds=0.0)
+    wplan = WorkerPlan(threads=1, groups=(group,), timing=timing, seed=0, pin=False, kernel_options=(),
+                       inspect_vectorisation=False, flush_bytes=1 << 20)
+    counter = types.SimpleNamespace(value=0)  # no put(): any message would raise here
+    stop = types.SimpleNamespace(is_set=lambda: False)
+    result = _run_group(group, wplan, stop, None, {}, counter)
+    assert counter.value == result["rounds"] == 3
+
+
+def test_rounds_too_few_for_a_margin_under_alpha_are_warned_about_before_the_sweep() -> None:
+    from dataclasses import replace
+
+    from harness.plan import power_warnings
+
+    suite = load_suite("default")
+    groups = plan(suite, (1,))
+    assert power_warnings(groups, suite) == []  # 24 rounds, 7 layouts: 6 x 2**-12 = 0.0015 <= 0.05 / 32
+    fewer = replace(suite, timing=replace(suite.timing, min_repeats=14))  # 7 reporting rounds: 6 x 2**-7 = 0.047
+    lines = power_warnings(plan(fewer, (1,)), fewer)
+    assert len(lines) == 6 and all("0.047" in line and "at least 24" in line for line in lines)
+    repeated = replace(suite, timing=replace(suite.timing, min_repeats=12, repetitions=2))  # 24 rounds over 2 runs
+    assert power_warnings(plan(repeated, (1,)), repeated) == []
+
+
+def test_reports_state_the_first_touch_limitation_on_several_numa_nodes() -> None:
+    import pandas as pd
+
+    from harness.machine import numa_note
+    from harness.store import CASE_COLUMNS, RunMetadata
+    from harness.summary import render_summary
+
+    empty = pd.DataFrame(columns=CASE_COLUMNS)
+    assert numa_note({"numa_nodes": ["node0"]}) is None
+    two = {"fingerprint": {"machine_id": "m", "numa_nodes": ["node0", "node1"]}, "suite": {"name": "s"}, "workers": {}}
+    text = render_summary(empty, RunMetadata(two))
+    assert "2 NUMA nodes" in text and "first-touched" in text
+    one = {"fingerprint": {"machine_id": "m", "numa_nodes": ["node0"]}, "suite": {"name": "s"}, "workers": {}}
+    assert "NUMA" not in render_summary(empty, RunMetadata(one))
