@@ -180,7 +180,7 @@ def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions,
         choose_median[layout] = best_med
         median, iqr = metrics.median_and_iqr(rep.to_numpy(float))
         rows.append({"layout": layout, "schedule": best["schedule"], "reported_median_ns": median,
-                     "iqr_rel": iqr / median, "rounds": int(rep.size), "case": best})
+                     "iqr_rel": iqr / median, "rounds": int(rep.size), "choose_median_ns": best_med, "case": best})
     frame = pd.DataFrame(rows)
     order = sorted(choose_median, key=lambda k: (choose_median[k], not is_plain(k)))
     tier_of = tiers(per_round, order, options.alpha, options.floor)
@@ -188,10 +188,18 @@ def rank_group(cases: pd.DataFrame, samples: pd.DataFrame, options: RankOptions,
     frame["split"] = "halves" if choose != report else "all rounds (too few to split)"
     series = dict(per_round)
     serial = cases[(cases["build"] == "serial") & (cases["status"] == "ok")]
+    serial_pick: dict[str, tuple[float, str]] = {}
     for layout, lc in serial.groupby("layout"):
-        picks = [(float(s[s.index.isin(choose)].median()), s) for s in (by_serial.get(c) for c in lc["case_id"]) if s is not None]
+        picks = [(float(by_serial[c][by_serial[c].index.isin(choose)].median()), c, sched)
+                 for c, sched in zip(lc["case_id"], lc["schedule"]) if c in by_serial]
         if picks:
-            series[metrics.SERIAL_PREFIX + layout] = min(picks, key=lambda m: m[0])[1].loc[lambda x: x.index.isin(report)]
+            med, cid, sched = min(picks)
+            series[metrics.SERIAL_PREFIX + layout] = by_serial[cid].loc[lambda x: x.index.isin(report)]
+            serial_pick[layout] = (med, sched)
+    # The layout's best 1-thread code, chosen on the choosing rounds like its schedule: the threaded
+    # build or the parallel=False build, whichever is faster there (the speedup basis of scaling).
+    frame["serial_schedule"] = frame["layout"].map(lambda l: serial_pick.get(l, (np.nan, None))[1])
+    frame["serial_choose_median_ns"] = frame["layout"].map(lambda l: serial_pick.get(l, (np.nan, None))[0])
     if probes is not None and not probes.empty:
         for cid, g in samples[samples["case_id"].isin(probes["case_id"])].groupby("case_id"):
             series[metrics.PROBE_PREFIX + cid] = g.set_index("round")["ns"].loc[lambda x: x.index.isin(report)]

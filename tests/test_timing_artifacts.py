@@ -7,6 +7,7 @@ import random
 import types
 
 import numpy as np
+import pytest
 
 from harness.plan import plan
 from harness.sampling import Timing
@@ -106,3 +107,30 @@ def test_reports_state_the_first_touch_limitation_on_several_numa_nodes() -> Non
     assert "2 NUMA nodes" in text and "first-touched" in text
     one = {"fingerprint": {"machine_id": "m", "numa_nodes": ["node0"]}, "suite": {"name": "s"}, "workers": {}}
     assert "NUMA" not in render_summary(empty, RunMetadata(one))
+
+
+def test_speedup_is_over_the_best_one_thread_code_and_says_which() -> None:
+    """Before, the basis was always the threaded build at 1 thread; a faster parallel=False build
+    was only shown beside it. Invented timings: serial 1.0 ms, threaded 1.1 ms, 2 threads 0.6 ms."""
+    import pandas as pd
+
+    from harness.rank import RankOptions, Runs, rank_runs
+    from harness.store import RunMetadata
+
+    rng = np.random.default_rng(5)
+    cases, samples = [], []
+    for threads, build, schedule, ns in ((1, "serial", "s", 1.0e6), (1, "parallel", "s", 1.1e6), (1, "parallel", "t", 1.3e6),
+                                         (2, "parallel", "s", 0.6e6), (2, "parallel", "t", 0.9e6)):
+        for layout, factor in (("var.z.y.x", 1.0), ("y.x.z.var", 1.5)):
+            cid = f"k|{schedule}|{build}|{layout}|float64|g|{threads}"
+            cases.append({"case_id": cid, "kernel": "k", "family": "stencils", "schedule": schedule, "build": build,
+                          "layout": layout, "dtype": "float64", "grid": "g", "threads": threads, "status": "ok",
+                          "traffic_bytes": 1e6, "flops": 1e6, "footprint_bytes": 1e6, "machine": "m"})
+            samples += [{"case_id": cid, "round": r + 100 * threads, "position": 0, "phase": "measure", "machine": "m",
+                         "build": build, "block": 0, "ns": ns * factor * np.exp(rng.normal(0, 0.005))} for r in range(24)]
+    meta = RunMetadata({"fingerprint": {"machine_id": "m"}, "suite": {"name": "demo"}, "workers": {}})
+    ranking = rank_runs(Runs(pd.DataFrame(cases), pd.DataFrame(samples), {"m": meta}, {"m": [meta]}), RankOptions())
+    two = ranking.scaling[ranking.scaling["threads"] == 2].set_index("layout")
+    assert (two["basis_1thread"] == "s, serial build").all()
+    assert two["speedup"].to_numpy() == pytest.approx([1.0 / 0.6] * 2, rel=0.02)  # not 1.1 / 0.6
+    assert (two["speedup_lo"] <= two["speedup"]).all() and (two["speedup"] <= two["speedup_hi"]).all()
