@@ -31,7 +31,8 @@ def render_gate(frame: pd.DataFrame, summary: dict[str, Any], fmt: str) -> str:
     lines = [
         f"## stridewise gate: {verdict}",
         "",
-        f"{summary['gated']} cases gated ({summary['mode']}), threshold {summary['threshold']:.0%}, "
+        f"{summary['gated']} cases gated ({summary['mode']}), tolerance {summary['threshold']:.0%} (a case fails when "
+        f"slower by more than this), detection target {summary.get('detect', float('nan')):.0%}, "
         f"confidence {summary['confidence']:.0%}, Holm correction; baseline of {summary['baseline_runs']} runs on "
         f"`{summary['baseline_machine']}`, current on `{summary['current_machine']}`. "
         f"{summary['slower']} slower, {summary['faster']} faster.",
@@ -41,14 +42,24 @@ def render_gate(frame: pd.DataFrame, summary: dict[str, Any], fmt: str) -> str:
     ]
     lines += [f"> warning: {w}" for w in summary["warnings"]]
     shown = frame.sort_values(["verdict"], key=lambda s: s.map({"slower": 0, "missing": 1, "new": 2, "faster": 3}).fillna(4))
+    both = "verdict_raw" in frame
     rows = []
     for _, r in shown.iterrows():
         if pd.isna(r.get("ratio")):
-            rows.append([r["case_id"], "", "", "", "", r["verdict"]])
-        else:
-            rows.append([r["case_id"], f"{r['baseline_ms']:.4g}", f"{r['current_ms']:.4g}", f"{r['ratio']:.3f}",
-                         f"[{r['ci_low']:.3f}, {r['ci_high']:.3f}]", r["verdict"]])
-    lines.append(tabulate(rows, headers=["case", "baseline ms", "current ms", "ratio", "interval", "verdict"], tablefmt="github"))
+            rows.append([r["case_id"], "", "", "", "", ""] + (["", ""] if both else []) + [r["verdict"]])
+            continue
+        row = [r["case_id"], f"{r['baseline_ms']:.4g}", f"{r['current_ms']:.4g}", f"{r['ratio']:.3f}",
+               f"[{r['ci_low']:.3f}, {r['ci_high']:.3f}]", f"{r['mds']:.0%}" if "mds" in r and pd.notna(r["mds"]) else ""]
+        if both:
+            row += [f"{r['ratio_raw']:.3f} [{r['ci_low_raw']:.3f}, {r['ci_high_raw']:.3f}]", f"{r['verdict_raw']} / {r['verdict_normalised']}"]
+        rows.append(row + [r["verdict"]])
+    headers = ["case", "baseline ms", "current ms", "ratio", "interval", "detectable"]
+    headers += (["raw ratio", "raw / normalised"] if both else []) + ["verdict"]
+    lines.append(tabulate(rows, headers=headers, tablefmt="github"))
+    if "mds" in frame:
+        lines += ["", "`detectable`: the smallest slowdown this case would be caught at with 80 % power (Holm's first step); "
+                  "intervals allow for a run effect shared by all cases of a run and each case's own scatter (shrunk "
+                  "towards the pooled value)."]
     return "\n".join(lines) + "\n"
 
 

@@ -18,7 +18,7 @@ class Timing:
     min_seconds: float = 0.05  # and at least this much measured time per case
     max_rounds: int = 200
     cold_cache: bool = False  # evict caches between samples
-    flush_bytes: int = 0  # cold-cache buffer size; 0 = twice the reported last-level cache
+    flush_bytes: int = 0  # eviction buffer size; 0 = twice the reported last-level cache per thread
     first_touch: bool = True  # buffers first written by a parallel loop at the worker's thread count
     serial_baseline: bool = True  # time parallel=False builds at 1 thread: the speedup denominator
     roof: bool = True  # measure the triad curve in every worker

@@ -80,8 +80,66 @@ def test_a_5_percent_change_under_a_10_percent_threshold_passes() -> None:
         rng = np.random.default_rng(2000 + seed)
         base = _baseline(TIMES, rng, between=DRIFT, within=NOISE)
         current = {c: t * 1.05 for c, t in TIMES.items()}
-        frame, summary = compare(base, [(_run_stats(current, rng, DRIFT, NOISE), META)], GateOptions())
+        frame, summary = compare(base, [(_run_stats(current, rng, DRIFT, NOISE), META)], GateOptions(threshold=0.10, detect=0.20))
         assert summary["result"] == "pass" and not (frame["verdict"] == "slower").any()
+
+
+def test_a_10_percent_slowdown_is_caught_when_the_tolerance_is_below_it() -> None:
+    """With the tolerance equal to the slowdown to catch, a true 10 % slowdown sits on the null
+    boundary and is caught at about the false-alarm rate. Tolerance 3 %, target 10 %: with 5
+    baseline and 3 current runs its minimum detectable slowdown is under 10 %, so it is caught in
+    at least 80 % of trials (the power the detectable slowdown promises)."""
+    trials, caught, mds = 100, 0, []
+    for seed in range(trials):
+        rng = np.random.default_rng(3000 + seed)
+        base = _baseline(TIMES, rng, runs=5, between=DRIFT, within=NOISE)
+        slowed = dict(TIMES, **{"k3|layout3": TIMES["k3|layout3"] * 1.10})
+        currents = [(_run_stats(slowed, rng, DRIFT, NOISE), META) for _ in range(3)]
+        frame, _ = compare(base, currents, GateOptions())
+        row = frame.set_index("case_id").loc["k3|layout3"]
+        caught += row["verdict"] == "slower"
+        mds.append(row["mds"])
+        assert not (frame.loc[frame["case_id"] != "k3|layout3", "verdict"] == "slower").any()
+    assert np.median(mds) < 0.10, np.median(mds)
+    assert caught / trials >= 0.80, f"caught in {caught} of {trials}"
+
+
+def _scattered(times: dict[str, float], scatter: dict[str, float], rng: np.random.Generator) -> dict:
+    """A run whose cases also scatter between runs by their own amount (log sd)."""
+    run = _run_stats(times, rng, DRIFT, 0.01)
+    for cid, sd in scatter.items():
+        run[cid]["median_ns"] *= float(np.exp(rng.normal(0, sd)))
+    return run
+
+
+def test_each_case_keeps_its_own_scatter_and_says_what_it_can_detect() -> None:
+    rng = np.random.default_rng(11)
+    scatter = {c: (0.15 if c.startswith("k0|") else 0.005) for c in TIMES}
+    runs = [_scattered(TIMES, scatter, rng) for _ in range(6)]
+    base = {"format": "stridewise-baseline", "machine_id": "m", "fingerprint": {}, "cases": {
+        c: {**{k: runs[0][c][k] for k in ("kernel", "schedule", "build", "layout", "dtype", "grid", "threads")},
+            "medians_ns": [r[c]["median_ns"] for r in runs[:4]], "log_ses": [r[c]["log_se"] for r in runs[:4]],
+            "roofs_gbps": [10.0] * 4, "samples": [15] * 4} for c in TIMES}}
+    frame, summary = compare(base, [(r, META) for r in runs[4:]], GateOptions())
+    mds = frame.set_index("case_id")["mds"]
+    quiet = mds.drop("k0|layout0")
+    assert mds["k0|layout0"] > 2 * quiet.max()  # one pooled variance would give every case the same
+    assert quiet.max() < 0.10 < mds["k0|layout0"]
+    assert summary["underpowered"] == 1 and "cannot promise to catch a 10% slowdown" in summary["warnings"][-1]
+
+
+def test_normalised_gate_also_fails_on_raw_times() -> None:
+    """A regression that slows the triad too (the same compile options) cancels in the normalised
+    times; the raw verdict still catches it, and the case fails."""
+    rng = np.random.default_rng(21)
+    base = _baseline(TIMES, rng, between=DRIFT, within=NOISE)
+    current = _run_stats({c: t * 1.3 for c, t in TIMES.items()}, rng, DRIFT, NOISE)
+    for v in current.values():
+        v["roof_gbps"] = 10.0 / 1.3  # the same-run triad moves 1.3x fewer bytes per second
+    frame, summary = compare(base, [(current, META)], GateOptions(normalise="triad"))
+    assert (frame["verdict_normalised"] == "unchanged").all()
+    assert (frame["verdict_raw"] == "slower").all() and (frame["verdict"] == "slower").all()
+    assert summary["result"] == "regression" and "either" in summary["mode"]
 
 
 def test_new_and_missing_cases_and_filters() -> None:

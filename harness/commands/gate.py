@@ -19,7 +19,11 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
                             description="Gate: exit 0 pass, 1 regression found, 2 unusable input.")
     gate_p.add_argument("baseline", help="baseline file, or a directory holding <machine-id>.json baselines")
     gate_p.add_argument("current", nargs="+", metavar="RUN_DIR", help="run directory (several: their runs are pooled)")
-    gate_p.add_argument("--threshold", type=float, default=0.10, help="slowdown that counts, as a fraction (default 0.10)")
+    gate_p.add_argument("--threshold", type=float, default=0.03,
+                        help="tolerance: a case fails only when slower by more than this fraction, with confidence (default 0.03)")
+    gate_p.add_argument("--detect", type=float, default=None,
+                        help="detection target: warn about cases whose minimum detectable slowdown exceeds it "
+                             "(default 0.10, or twice the tolerance if that is larger)")
     gate_p.add_argument("--confidence", type=float, default=0.95, help="confidence level (default 0.95)")
     gate_p.add_argument("--cases", action="append", default=[], metavar="GLOB", help="gate only case ids matching (repeatable)")
     gate_p.add_argument("--normalise", nargs="?", const="triad", metavar="REF",
@@ -42,7 +46,12 @@ def run(args: argparse.Namespace) -> int:
     norm = args.normalise
     if norm not in (None, "triad") and not (norm.startswith("case:") and norm.count("|") == 3):
         raise StridewiseError(f"--normalise must be 'triad' or 'case:KERNEL|SCHEDULE|BUILD|LAYOUT', got '{norm}'")
-    options = GateOptions(args.threshold, args.confidence, tuple(args.cases), norm)
+    if args.detect is None:
+        args.detect = max(0.10, 2 * args.threshold)
+    if not args.detect > args.threshold:
+        raise StridewiseError(f"--detect ({args.detect}) must exceed --threshold ({args.threshold}): a slowdown at the "
+                              "tolerance itself is on the test's null boundary and is never detected")
+    options = GateOptions(args.threshold, args.confidence, tuple(args.cases), norm, args.detect)
     return run_gate(args.baseline, args.current, options, args.format, args.out)
 
 
