@@ -28,6 +28,47 @@ class GroupSamples:
     sibling_evictions: int = 0  # samples preceded by a case on the same buffers, so evicted first
 
 
+def spread(order: list[str], owner: dict[str, str], last: str | None) -> list[str]:
+    """``order`` rearranged so that no two neighbours (nor ``last``, the owner of the sample
+    before it) share buffers, where that is possible: each step takes the first case in the given
+    (shuffled) order that differs from its predecessor and leaves the rest arrangeable."""
+    from collections import Counter
+
+    remaining, out = list(order), []
+    counts = Counter(owner[c] for c in remaining if c in owner)
+
+    def arrangeable(n: int, after: str | None) -> bool:
+        """n cases can follow ``after`` with no two neighbours on the same buffers."""
+        return all(k <= (n + 1) // 2 for k in counts.values()) and counts.get(after, 0) <= n // 2
+
+    while remaining:
+        pick = None
+        for c in remaining:
+            key = owner.get(c)
+            if key is not None and key == last:
+                continue
+            if key is not None:
+                counts[key] -= 1
+            ok = arrangeable(len(remaining) - 1, key)
+            if key is not None:
+                counts[key] += 1
+            if ok:
+                pick = c
+                break
+        if pick is None:  # no arrangement avoids every same-buffers neighbour: thin out the largest set
+            others = [c for c in remaining if owner.get(c) is None or owner.get(c) != last]
+            pick = max(others, key=lambda c: counts.get(owner.get(c), 0)) if others else remaining[0]
+        remaining.remove(pick)
+        key = owner.get(pick)
+        if key is not None:
+            counts[key] -= 1
+            if counts[key] == 0:
+                del counts[key]
+        out.append(pick)
+        last = key
+    return out
+
+
 def _measure(call: Callable[[], Any]) -> int:
     start = time.perf_counter_ns()
     call()
@@ -56,9 +97,11 @@ def sample_rounds(
     Round ids start at ``first_round`` (repetitions of a group get disjoint ids).
 
     ``buffers[case]`` names the buffers a case works on (cases of one layout share them). A sample
-    whose predecessor (in this round, or the last of the previous one) worked on the same buffers
-    would find them warm in cache, a bonus no other sample gets; ``evict`` runs before it, outside
-    the timed region. With ``before_sample`` every sample is evicted anyway.
+    whose predecessor worked on the same buffers would find them warm in cache, and clean of
+    another case's dirty lines, a bonus no other sample gets: each shuffled round is rearranged
+    (``spread``) so that no case follows one on its own buffers, and where no arrangement can
+    avoid it, ``evict`` runs before the sample, outside the timed region. With ``before_sample``
+    every sample is evicted anyway.
 
     Adaptive effort: when ``timing.max_seconds`` > 0 and ``wants_more`` is given, the stopping
     point is a look: ``wants_more(rows)`` decides whether to double the measured rounds, as long
@@ -83,6 +126,9 @@ def sample_rounds(
     while True:
         phase = "warmup" if total_rounds < timing.warmup else "measure"
         rng.shuffle(ids)
+        if buffers:
+            ids = spread(ids, {c: buffers[c] for c in ids if buffers.get(c) is not None},
+                         buffers.get(previous) if previous is not None else None)
         round_start = time.perf_counter_ns()
         kernel_ns = 0
         flush_ns = 0

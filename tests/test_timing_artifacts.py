@@ -7,6 +7,8 @@ import random
 import types
 
 import numpy as np
+from hypothesis import given
+from hypothesis import strategies as st
 import pytest
 
 from harness.plan import plan
@@ -17,23 +19,42 @@ from harness.worker import WorkerPlan, _run_group, shared_buffers
 from kernels.parallel import evict_caches
 
 
-def test_a_sample_after_a_case_on_the_same_buffers_is_evicted_first_and_no_other() -> None:
+def _run_order(buffers: dict[str, str], cases: str, rounds: int, seed: int) -> tuple[list[str], int]:
     order: list[str] = []
-    calls = {c: (lambda c=c: order.append(c)) for c in "abcde"}
-    buffers = {"a": "L1", "b": "L1", "c": "L1", "d": "L2"}  # e: buffers of its own (a probe)
-    out = sample_rounds(calls, Timing(warmup=1, min_repeats=40, min_seconds=0.0), random.Random(3), lambda: False,
+    calls = {c: (lambda c=c: order.append(c)) for c in cases}
+    out = sample_rounds(calls, Timing(warmup=1, min_repeats=rounds, min_seconds=0.0), random.Random(seed), lambda: False,
                         buffers=buffers, evict=lambda: order.append("evict"))
-    previous, evicted_before = None, False
-    expected = 0
+    return order, out.sibling_evictions
+
+
+def test_no_case_follows_one_on_its_own_buffers_when_an_order_avoids_it() -> None:
+    """Cases of one layout share buffers; a sample right after a sibling found them warm (measured:
+    2-5 % faster at 2 threads, and a read-only eviction did not remove the bonus). Rounds are now
+    arranged so that no case follows a sibling, across round boundaries too."""
+    buffers = {"a": "L1", "b": "L1", "c": "L2", "d": "L2", "e": "L3", "f": "L3"}  # g: a probe, buffers of its own
+    for seed in range(20):
+        order, evictions = _run_order(buffers, "abcdefg", 30, seed)
+        owners = [buffers.get(c) for c in order]
+        assert evictions == 0 and "evict" not in order
+        assert not any(x is not None and x == y for x, y in zip(owners, owners[1:]))
+        assert sorted(order[:7]) == list("abcdefg")  # still every case once per round
+    rounds = {tuple(_run_order(buffers, "abcdefg", 3, seed)[0][7:14]) for seed in range(20)}
+    assert len(rounds) > 10  # and still shuffled
+
+
+def test_a_sibling_no_order_can_avoid_is_evicted_first_and_no_other_sample() -> None:
+    buffers = {"a": "L1", "b": "L1", "c": "L1", "d": "L2"}  # 3 of 5 on one layout: a round boundary may force it
+    order, evictions = _run_order(buffers, "abcde", 40, 3)
+    previous, evicted_before, adjacent = None, False, 0
     for item in order:
         if item == "evict":
             evicted_before = True
             continue
         shares = previous is not None and buffers.get(item) is not None and buffers.get(item) == buffers.get(previous)
         assert evicted_before == shares, (previous, item)
-        expected += shares
+        adjacent += shares
         previous, evicted_before = item, False
-    assert out.sibling_evictions == expected > 10  # 3 of 5 cases share buffers: many adjacent pairs in 41 rounds
+    assert evictions == adjacent and adjacent <= 41  # at most one forced neighbour per round
 
 
 def test_cold_mode_evicts_every_sample_and_no_sibling_twice() -> None:
@@ -134,3 +155,23 @@ def test_speedup_is_over_the_best_one_thread_code_and_says_which() -> None:
     assert (two["basis_1thread"] == "s, serial build").all()
     assert two["speedup"].to_numpy() == pytest.approx([1.0 / 0.6] * 2, rel=0.02)  # not 1.1 / 0.6
     assert (two["speedup_lo"] <= two["speedup"]).all() and (two["speedup"] <= two["speedup_hi"]).all()
+
+
+@given(st.lists(st.sampled_from(["A", "B", "C", None]), max_size=30), st.sampled_from(["A", "B", None]), st.randoms())
+def test_spread_is_a_permutation_that_avoids_every_avoidable_neighbour(keys, last, rnd) -> None:
+    from collections import Counter
+
+    from harness.timing import spread
+
+    ids = [f"c{i}" for i in range(len(keys))]
+    rnd.shuffle(ids)
+    owner = {f"c{i}": k for i, k in enumerate(keys) if k is not None}
+    out = spread(ids, owner, last)
+    assert sorted(out) == sorted(ids)
+    seq = [last] + [owner.get(c) for c in out]
+    adjacent = sum(1 for x, y in zip(seq, seq[1:]) if x is not None and x == y)
+    counts, n = Counter(owner.values()), len(ids)
+    # Textbook condition for an arrangement with no equal neighbours (from memory, common practice):
+    # no key on more than ceil(n/2) items, and the key of ``last`` on at most floor(n/2).
+    if all(k <= (n + 1) // 2 for k in counts.values()) and counts.get(last, 0) <= n // 2:
+        assert adjacent == 0
