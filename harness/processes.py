@@ -68,3 +68,27 @@ def receive(q: Any, proc: Any, timeout_s: float, what: str) -> Any:
                 proc.terminate()
                 proc.join(5)
                 raise ChildError(f"{what}: no answer from the child process in {timeout_s:.0f} s; it was stopped") from None
+
+
+#: Exit status of a child that found its parent gone.
+EXIT_ORPHANED = 70
+
+
+def exit_with_parent() -> None:
+    """In a multiprocessing child: exit at once when the parent process is gone (crashed or killed
+    with SIGKILL), so no worker outlives the command that started it. A daemon thread waits on the
+    parent's sentinel, which becomes ready only when the parent exits: no polling, no wake-ups
+    while kernels are timed."""
+    import multiprocessing
+    import threading
+    from multiprocessing.connection import wait
+
+    parent = multiprocessing.parent_process()
+    if parent is None:
+        return
+
+    def watch() -> None:
+        wait([parent.sentinel])
+        os._exit(EXIT_ORPHANED)
+
+    threading.Thread(target=watch, name="stridewise-parent-watch", daemon=True).start()

@@ -7,6 +7,7 @@ nothing finished and ``--resume`` can carry on.
 from __future__ import annotations
 
 import csv
+import errno
 import io
 import json
 import os
@@ -102,6 +103,16 @@ class RunData:
     samples: Any  # pandas DataFrame, one row per sample
 
 
+class DiskFull(StridewiseError):
+    """The run directory's filesystem is full: the run stopped whole and can be resumed."""
+
+
+def _write_error(path: Path, exc: OSError) -> StridewiseError:
+    if exc.errno in (errno.ENOSPC, errno.EDQUOT):
+        return DiskFull(f"disk full while writing {path}")
+    return RunStoreError(f"cannot write to {path}: {exc.strerror or exc}")
+
+
 class RunStoreError(StridewiseError):
     """A run directory cannot be created, written or read."""
 
@@ -140,17 +151,32 @@ class RunStore:
 
     def write_metadata(self, metadata: dict[str, Any]) -> None:
         tmp = self.path / (METADATA + ".tmp")
-        tmp.write_text(json.dumps(metadata, indent=2, default=str))
-        os.replace(tmp, self.path / METADATA)  # atomic: a reader never sees half a file
+        try:
+            tmp.write_text(json.dumps(metadata, indent=2, default=str))
+            os.replace(tmp, self.path / METADATA)  # atomic: a reader never sees half a file
+        except OSError as exc:
+            tmp.unlink(missing_ok=True)  # the previous metadata.json stays whole
+            raise _write_error(self.path, exc) from None
 
     def append(self, cases: list[dict[str, Any]], samples: list[dict[str, Any]]) -> None:
-        """Append one finished group: samples first, then the case rows that mark it finished."""
-        for name, columns, rows in ((SAMPLES, SAMPLE_COLUMNS, samples), (CASES, CASE_COLUMNS, cases)):
-            with (self.path / name).open("a", newline="") as fh:
-                writer = csv.DictWriter(fh, fieldnames=self._header(name, columns), extrasaction="ignore")
-                writer.writerows(rows)
-                fh.flush()
-                os.fsync(fh.fileno())
+        """Append one finished group: samples first, then the case rows that mark it finished.
+        All or nothing: on a write error (a full disk) both files are cut back to their sizes
+        before the call, so no torn line and no sample of an unrecorded case stays behind."""
+        sizes = {name: (self.path / name).stat().st_size for name in (SAMPLES, CASES)}
+        try:
+            for name, columns, rows in ((SAMPLES, SAMPLE_COLUMNS, samples), (CASES, CASE_COLUMNS, cases)):
+                with (self.path / name).open("a", newline="") as fh:
+                    writer = csv.DictWriter(fh, fieldnames=self._header(name, columns), extrasaction="ignore")
+                    writer.writerows(rows)
+                    fh.flush()
+                    os.fsync(fh.fileno())
+        except OSError as exc:
+            for name, size in sizes.items():
+                try:
+                    os.truncate(self.path / name, size)
+                except OSError:
+                    pass
+            raise _write_error(self.path, exc) from None
 
     def _header(self, name: str, columns: list[str]) -> list[str]:
         """The columns this run's file was created with (a resumed older run keeps its format)."""

@@ -5,7 +5,9 @@ from __future__ import annotations
 from dataclasses import replace
 
 import multiprocessing
+import queue as queue_module
 import sys
+import time
 import tomllib
 from datetime import datetime, timezone
 from pathlib import Path
@@ -16,7 +18,7 @@ from harness.cases import CaseKind, Group, of_kind
 from harness.plan import group_bytes, plan, power_warnings, working_set_warnings
 from harness.processes import EXIT_INTERRUPTED, StopRequest, environment
 from kernels.errors import StridewiseError
-from harness.store import RunMetadata, RunStore, RunStoreError
+from harness.store import DiskFull, RunMetadata, RunStore, RunStoreError
 from harness.conversions import auto_conversions
 from harness.recording import compile_totals, drain
 from harness.suite import Suite, SuiteError, load_suite, parse_suite, read_suite_text
@@ -25,6 +27,12 @@ from harness.worker import WorkerPlan, worker_environment, worker_main
 
 FAILED_BASE = 10  # exit status 10 + N when N cases failed validation or raised (N capped at 100)
 MEMORY_SHARE = 0.8  # a group may use at most this share of the memory available at start
+
+
+#: Exit status of a sweep stopped by a full disk (resumable); sysexits.h's EX_TEMPFAIL, from memory.
+EXIT_DISK_FULL = 75
+#: Seconds a worker gets to finish its current sample after a stop, before it is terminated.
+WORKER_STOP_S = 60.0
 
 
 def default_run_dir(label: str, machine_id: str) -> Path:
@@ -159,27 +167,37 @@ def run_sweep(
         proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event, rounds_done), daemon=True)
         with environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
             proc.start()
-        crash = drain(q, proc, store, metadata, progress, rounds_done)
+        try:
+            crash = drain(q, proc, store, metadata, progress, rounds_done)
+        except DiskFull:
+            stop_event.set()  # the worker stops after its current sample; nothing more can be written
+            deadline = time.monotonic() + WORKER_STOP_S
+            while proc.is_alive() and time.monotonic() < deadline:
+                try:  # keep its queue moving, or it could wait forever to hand over its last messages
+                    q.get(timeout=0.5)
+                except queue_module.Empty:
+                    pass
+            if proc.is_alive():
+                proc.terminate()
+            proc.join()
+            raise
         proc.join()
         return crash
 
-    with stopper.installed():
-        for threads in counts:
-            mine = tuple(g for g in todo if g.threads == threads)
-            if mine and not stop_event.is_set():
-                crash = run_worker(threads, mine)
-                if crash:
-                    crashed.append(crash)
-                    break
-            if suite.conversions_auto and not stop_event.is_set():
-                extra = auto_conversions(store, suite, threads)
-                if extra:
-                    progress.total += sum(len(g.cases) for g in extra)
-                    progress.refresh()
-                    crash = run_worker(threads, tuple(extra))
-                    if crash:
-                        crashed.append(crash)
-                        break
+    try:
+        with stopper.installed():
+            _run_thread_counts(counts, todo, suite, store, stop_event, progress, run_worker, crashed)
+    except DiskFull as exc:
+        progress.close()
+        metadata["status"] = "stopped: disk full"
+        metadata["ended"] = _now()
+        try:
+            store.write_metadata(metadata)
+        except StridewiseError:
+            pass  # the previous metadata.json stays whole; the cases recorded so far are intact
+        print(f"stridewise: {exc}: stopped after the last complete group; free some space, then "
+              f"`stridewise sweep --resume {store.path}` finishes the run", file=sys.stderr)
+        return EXIT_DISK_FULL
     progress.close()
     metadata["ended"] = _now()
     interrupted = stopper.signal is not None
@@ -200,6 +218,27 @@ def run_sweep(
     if crashed:
         return 1
     return FAILED_BASE + min(failed, 100) if failed else 0
+
+
+def _run_thread_counts(counts: Any, todo: list[Group], suite: Suite, store: RunStore, stop_event: Any, progress: Any,
+                       run_worker: Any, crashed: list[str]) -> None:
+    """One worker per thread count (and one more for automatic conversions), until a stop or a crash."""
+    for threads in counts:
+        mine = tuple(g for g in todo if g.threads == threads)
+        if mine and not stop_event.is_set():
+            crash = run_worker(threads, mine)
+            if crash:
+                crashed.append(crash)
+                break
+        if suite.conversions_auto and not stop_event.is_set():
+            extra = auto_conversions(store, suite, threads)
+            if extra:
+                progress.total += sum(len(g.cases) for g in extra)
+                progress.refresh()
+                crash = run_worker(threads, tuple(extra))
+                if crash:
+                    crashed.append(crash)
+                    break
 
 
 def _summary(store: RunStore, cases: Any, metadata: dict[str, Any]) -> str:

@@ -46,8 +46,11 @@ def worker_environment(threads: int, layer: str, pin: bool) -> dict[str, str]:
 def worker_main(plan: WorkerPlan, queue: Any, stop: Any, rounds_done: Any) -> None:
     """Entry point of the spawned process. ``rounds_done`` (a shared-memory integer) counts the
     current group's finished rounds: nothing crosses the process boundary inside a group's rounds."""
+    from harness.processes import exit_with_parent
+
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # the parent decides when to stop, via ``stop``
     signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    exit_with_parent()
     try:
         _run(plan, queue, stop, rounds_done)
     except BaseException:  # noqa: BLE001 - reported to the parent, which records it

@@ -383,3 +383,40 @@ def test_a_strip_wider_than_l2_is_warned_about_and_a_narrower_one_is_not() -> No
     narrow = parse_suite(tomllib.loads(text + "[kernels.options]\nvarcoef = { strip_width = 32 }\n"), "l2")
     assert working_set_warnings(plan(narrow, [1]), narrow, 512 * 1024) == []
     assert working_set_warnings(plan(suite, [1]), suite, None) == []
+
+
+@pytest.mark.slow
+def test_a_full_disk_stops_the_sweep_whole_and_resume_completes_it(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                                                   capsys: pytest.CaptureFixture[str]) -> None:
+    """A filesystem-full error injected at the store's write (the third fsync: the second group's
+    samples): the sweep stops with one line and exit 75, the first group is recorded whole, no
+    torn line or orphan sample stays behind, and --resume finishes the run."""
+    import errno
+
+    from harness.commands import main
+
+    suite = _suite(tmp_path, '["levelcoef", "laplacian"]', repeats=3)
+    out = tmp_path / "run"
+    real_fsync, calls = os.fsync, []
+
+    def full_disk(fd: int) -> None:
+        calls.append(fd)
+        if len(calls) == 3:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        real_fsync(fd)
+
+    monkeypatch.setattr(os, "fsync", full_disk)
+    code = main(["sweep", str(suite), "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 75 and "disk full" in err and "--resume" in err and "Traceback" not in err, err
+    store = RunStore(out)
+    cases, samples = store.cases(), store.samples()
+    assert set(cases["kernel"]) - {"triad"} == {"levelcoef"}  # the first group, whole
+    assert set(samples["case_id"]) <= set(cases["case_id"])  # no sample of an unrecorded case
+    assert (out / "samples.csv").read_text().endswith("\n") and (out / "cases.csv").read_text().endswith("\n")
+    assert store.metadata()["status"] == "stopped: disk full"
+    monkeypatch.setattr(os, "fsync", real_fsync)
+    assert main(["sweep", "--resume", str(out), "--quiet"]) == 0
+    done = RunStore(out).cases()
+    assert set(done["kernel"]) - {"triad"} == {"levelcoef", "laplacian"} and done["case_id"].is_unique
+    assert RunStore(out).samples().groupby("case_id").size().max() == 4  # 1 warm-up + 3 measured, none twice

@@ -43,6 +43,9 @@ def _measure(threads: int, max_bytes: int, out: Any) -> None:
 
     from harness.roof import measure_curve
 
+    from harness.processes import exit_with_parent
+
+    exit_with_parent()
     numba.set_num_threads(threads)
     out.put((measure_curve(threads, max_bytes).as_dict(), compute_ceilings(threads, ["float64"])["float64"]))
 
