@@ -2,7 +2,7 @@
 
 import sys
 
-from harness.commands import main
+from harness.cli import main
 
 if __name__ == "__main__":  # spawned worker processes import this module without running it
     sys.exit(main())

@@ -98,8 +98,11 @@ def save_baseline(run_dirs: list[str], out: str | None, at_least: int = 3) -> Pa
         "cases": cases,
     }
     path = Path(out) if out else BASELINE_DIR / f"{machine}.json"
-    path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(json.dumps(doc, indent=1))
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(json.dumps(doc, indent=1))
+    except OSError as exc:
+        raise GateError(f"cannot write the baseline to {path}: {exc.strerror or exc}") from None
     return path
 
 

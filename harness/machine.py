@@ -127,7 +127,18 @@ def memory() -> dict[str, int]:
 
 
 def available_memory_bytes() -> int | None:
-    return memory().get("MemAvailable")
+    """Memory a new allocation can count on: the kernel's MemAvailable, capped by this process's
+    address-space limit (``ulimit -v``) where one is set."""
+    available = memory().get("MemAvailable")
+    try:
+        import resource
+
+        soft, _ = resource.getrlimit(resource.RLIMIT_AS)
+    except (ImportError, OSError, ValueError):
+        return available
+    if soft == resource.RLIM_INFINITY or soft <= 0:
+        return available
+    return min(available, soft) if available else soft
 
 
 def governor() -> dict[str, Any]:

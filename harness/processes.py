@@ -34,6 +34,20 @@ def environment(extra: dict[str, str]) -> Iterator[None]:
                 os.environ[key] = value
 
 
+@contextmanager
+def signals_held() -> Iterator[None]:
+    """Block SIGINT and SIGTERM while a child process starts. The child inherits the blocked mask
+    through exec, so a Ctrl-C to the whole process group cannot raise KeyboardInterrupt in it while
+    it is still importing (it stops only when the parent asks); the parent gets any signal that
+    arrived in the meantime as soon as the block ends."""
+    held = {signal.SIGINT, signal.SIGTERM}
+    old = signal.pthread_sigmask(signal.SIG_BLOCK, held)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, old)
+
+
 class StopRequest:
     """Turns SIGINT/SIGTERM into a request to stop after the current sample."""
 

@@ -16,7 +16,7 @@ from typing import Any
 from harness import machine
 from harness.cases import CaseKind, Group, of_kind
 from harness.plan import group_bytes, plan, power_warnings, working_set_warnings
-from harness.processes import EXIT_INTERRUPTED, StopRequest, environment
+from harness.processes import EXIT_INTERRUPTED, StopRequest, environment, signals_held
 from kernels.errors import StridewiseError
 from harness.store import DiskFull, RunMetadata, RunStore, RunStoreError
 from harness.conversions import auto_conversions
@@ -165,7 +165,7 @@ def run_sweep(
         # and the parent's progress bar just as the next round's first kernel started.
         rounds_done = ctx.Value("q", 0, lock=False)
         proc = ctx.Process(target=worker_main, args=(wplan, q, stop_event, rounds_done), daemon=True)
-        with environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)):
+        with environment(worker_environment(threads, suite.threads.layer, suite.threads.pin)), signals_held():
             proc.start()
         try:
             crash = drain(q, proc, store, metadata, progress, rounds_done)
@@ -184,40 +184,42 @@ def run_sweep(
         proc.join()
         return crash
 
-    try:
-        with stopper.installed():
-            _run_thread_counts(counts, todo, suite, store, stop_event, progress, run_worker, crashed)
-    except DiskFull as exc:
-        progress.close()
-        metadata["status"] = "stopped: disk full"
-        metadata["ended"] = _now()
+    # The handler stays installed to the end: a signal while the summary is written must not kill
+    # the process half way (the run's data are safe either way; the exit status tells of the signal).
+    with stopper.installed():
         try:
-            store.write_metadata(metadata)
-        except StridewiseError:
-            pass  # the previous metadata.json stays whole; the cases recorded so far are intact
-        print(f"stridewise: {exc}: stopped after the last complete group; free some space, then "
-              f"`stridewise sweep --resume {store.path}` finishes the run", file=sys.stderr)
-        return EXIT_DISK_FULL
-    progress.close()
-    metadata["ended"] = _now()
-    interrupted = stopper.signal is not None
-    metadata["status"] = "interrupted" if interrupted else ("crashed" if crashed else "complete")
-    compile_totals(metadata)
-    store.write_metadata(metadata)
-    cases = store.cases()
-    store.write_summary(_summary(store, cases, metadata))
-    real = cases[~of_kind(cases, CaseKind.PROBE)] if len(cases) else cases
-    failed = int((real["status"] != "ok").sum()) if len(real) else 0
-    if not quiet or failed or interrupted:
-        print(f"stridewise: {metadata['status']}: {len(real)} cases recorded, {failed} failed; summary in {store.path / 'summary.md'}",
-              file=sys.stderr)
-    for text in crashed:
-        print(f"stridewise: worker crashed:\n{text}", file=sys.stderr)
-    if interrupted:
-        return EXIT_INTERRUPTED.get(stopper.signal, 130)
-    if crashed:
-        return 1
-    return FAILED_BASE + min(failed, 100) if failed else 0
+            _run_thread_counts(counts, todo, suite, store, stop_event, progress, run_worker, crashed)
+        except DiskFull as exc:
+            progress.close()
+            metadata["status"] = "stopped: disk full"
+            metadata["ended"] = _now()
+            try:
+                store.write_metadata(metadata)
+            except StridewiseError:
+                pass  # the previous metadata.json stays whole; the cases recorded so far are intact
+            print(f"stridewise: {exc}: stopped after the last complete group; free some space, then "
+                  f"`stridewise sweep --resume {store.path}` finishes the run", file=sys.stderr)
+            return EXIT_DISK_FULL
+        interrupted = stopper.signal is not None  # groups were left undone
+        progress.close()
+        metadata["ended"] = _now()
+        metadata["status"] = "interrupted" if interrupted else ("crashed" if crashed else "complete")
+        compile_totals(metadata)
+        store.write_metadata(metadata)
+        cases = store.cases()
+        store.write_summary(_summary(store, cases, metadata))
+        real = cases[~of_kind(cases, CaseKind.PROBE)] if len(cases) else cases
+        failed = int((real["status"] != "ok").sum()) if len(real) else 0
+        if not quiet or failed or interrupted:
+            print(f"stridewise: {metadata['status']}: {len(real)} cases recorded, {failed} failed; summary in "
+                  f"{store.path / 'summary.md'}", file=sys.stderr)
+        for text in crashed:
+            print(f"stridewise: worker crashed:\n{text}", file=sys.stderr)
+        if stopper.signal is not None:
+            return EXIT_INTERRUPTED.get(stopper.signal, 130)
+        if crashed:
+            return 1
+        return FAILED_BASE + min(failed, 100) if failed else 0
 
 
 def _run_thread_counts(counts: Any, todo: list[Group], suite: Suite, store: RunStore, stop_event: Any, progress: Any,

@@ -420,3 +420,33 @@ def test_a_full_disk_stops_the_sweep_whole_and_resume_completes_it(tmp_path: Pat
     done = RunStore(out).cases()
     assert set(done["kernel"]) - {"triad"} == {"levelcoef", "laplacian"} and done["case_id"].is_unique
     assert RunStore(out).samples().groupby("case_id").size().max() == 4  # 1 warm-up + 3 measured, none twice
+
+
+def _session_members(sid: int) -> list[str]:
+    out = subprocess.run(["ps", "-eo", "pid=,sid=,args="], capture_output=True, text=True).stdout
+    return [line.strip() for line in out.splitlines() if line.split()[1] == str(sid)]
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("sig, status", [(signal.SIGINT, 130), (signal.SIGTERM, 143), (signal.SIGKILL, -9)])
+def test_no_process_outlives_a_stopped_sweep(tmp_path: Path, sig: signal.Signals, status: int) -> None:
+    """The sweep runs in a session of its own; once its worker is up, the signal goes to the
+    whole process group (SIGINT, SIGTERM: as a terminal's Ctrl-C would) or to the parent alone
+    (SIGKILL: the worker must notice its parent is gone). Then no process of the session remains."""
+    out = tmp_path / "run"
+    proc = subprocess.Popen([sys.executable, "-m", "harness", "sweep", "--quiet", str(_suite(tmp_path, '["laplacian"]', 40)),
+                             "--out", str(out)], cwd=ROOT, stderr=subprocess.PIPE, text=True, start_new_session=True)
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline and '"workers": {}' in ((out / "metadata.json").read_text() if (out / "metadata.json").exists() else '"workers": {}'):
+        time.sleep(0.2)  # until the worker has reported itself
+    if sig == signal.SIGKILL:
+        os.kill(proc.pid, sig)
+    else:
+        os.killpg(proc.pid, sig)
+    assert proc.wait(120) == status
+    err = proc.stderr.read()
+    assert "Traceback" not in err, err
+    deadline = time.monotonic() + 10
+    while _session_members(proc.pid) and time.monotonic() < deadline:
+        time.sleep(0.2)
+    assert _session_members(proc.pid) == []

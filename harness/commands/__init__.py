@@ -32,8 +32,8 @@ def build_parser() -> Parser:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    args = build_parser().parse_args(argv)
     try:
+        args = build_parser().parse_args(argv)
         return int(args.func(args) or 0)
     except StridewiseError as exc:
         print(f"stridewise: error: {exc}", file=sys.stderr)

@@ -62,7 +62,10 @@ def run_gate(baseline_path: str, currents: list[str], options: GateOptions, fmt:
         print(f"stridewise: warning: {w}", file=sys.stderr)
     text = render_gate(frame, summary, fmt)
     if out:
-        Path(out).write_text(text)
+        try:
+            Path(out).write_text(text)
+        except OSError as exc:
+            raise StridewiseError(f"cannot write the report to {out}: {exc.strerror or exc}") from None
     else:
         sys.stdout.write(text)
     return gate_verdict(frame, render_gate(frame, summary, "md"))

@@ -51,13 +51,19 @@ def run(args: argparse.Namespace) -> int:
     if args.out:
         from pathlib import Path
 
-        Path(args.out).write_text(text)
+        try:
+            Path(args.out).write_text(text)
+        except OSError as exc:
+            raise StridewiseError(f"cannot write the report to {args.out}: {exc.strerror or exc}") from None
         print(f"stridewise: report written to {args.out}", file=sys.stderr)
     else:
         sys.stdout.write(text)
     if args.plots:
         from harness.plots import plot_ranking
 
-        paths = plot_ranking(ranking, args.plots)
+        try:
+            paths = plot_ranking(ranking, args.plots)
+        except OSError as exc:
+            raise StridewiseError(f"cannot write plots to {args.plots}: {exc.strerror or exc}") from None
         print(f"stridewise: {len(paths)} plots written to {args.plots}", file=sys.stderr)
     return 0

@@ -10,8 +10,9 @@ from typing import Any
 
 from harness import machine
 from harness.compute_roof import describe_ceiling
-from harness.processes import ChildError, environment, receive
+from harness.processes import ChildError, environment, receive, signals_held
 from harness.roof import MAX_FOOTPRINT, MIN_FOOTPRINT, RoofCurve
+from harness.sweep import MEMORY_SHARE
 from harness.tables import render
 from harness.worker import compute_ceilings, worker_environment
 from kernels.errors import StridewiseError
@@ -47,7 +48,12 @@ def _measure(threads: int, max_bytes: int, out: Any) -> None:
 
     exit_with_parent()
     numba.set_num_threads(threads)
-    out.put((measure_curve(threads, max_bytes).as_dict(), compute_ceilings(threads, ["float64"])["float64"]))
+    try:
+        out.put(("ok", measure_curve(threads, max_bytes).as_dict(), compute_ceilings(threads, ["float64"])["float64"]))
+    except MemoryError:
+        out.put(("error", f"the triad at {max_bytes / 2**30:.3g} GiB does not fit in the memory this process may use"))
+    except Exception as exc:  # noqa: BLE001 - reported by the parent in one line
+        out.put(("error", f"{type(exc).__name__}: {exc}"))
 
 
 def run_roof(args: argparse.Namespace) -> int:
@@ -64,15 +70,22 @@ def run_roof(args: argparse.Namespace) -> int:
     max_bytes = parse_bytes(args.max_bytes)
     if not MIN_FOOTPRINT <= max_bytes <= MAX_FOOTPRINT:
         raise StridewiseError(f"--max-bytes must be between 16KiB (the smallest triad footprint) and 1TiB, got {args.max_bytes}")
+    available = machine.available_memory_bytes()
+    if available and max_bytes > MEMORY_SHARE * available:
+        raise StridewiseError(f"--max-bytes {args.max_bytes} is more than {MEMORY_SHARE:.0%} of the {available / 2**30:.1f} GiB "
+                              "this process may use (available memory, or its ulimit -v); give a smaller size")
     ctx = multiprocessing.get_context("spawn")
     curves, ceilings = [], []
     for threads in counts:  # one fresh process per thread count, like the sweep's workers
         q = ctx.Queue()
-        with environment(worker_environment(threads, "default", False)):
+        with environment(worker_environment(threads, "default", False)), signals_held():
             proc = ctx.Process(target=_measure, args=(threads, max_bytes, q), daemon=True)
             proc.start()
         try:
-            curve, ceiling = receive(q, proc, ROOF_TIMEOUT_S, f"roof at {threads} thread(s)")
+            answer = receive(q, proc, ROOF_TIMEOUT_S, f"roof at {threads} thread(s)")
+            if answer[0] == "error":
+                raise ChildError(f"roof at {threads} thread(s): {answer[1]}")
+            _, curve, ceiling = answer
             curves.append(RoofCurve.from_dict(curve))
             ceilings.append(ceiling)
         except ChildError as exc:
@@ -91,6 +104,9 @@ def run_roof(args: argparse.Namespace) -> int:
     if args.plot:
         from harness.plots import plot_roof
 
-        plot_roof(curves, args.plot)
+        try:
+            plot_roof(curves, args.plot)
+        except OSError as exc:
+            raise StridewiseError(f"cannot write the plot to {args.plot}: {exc.strerror or exc}") from None
         print(f"plot written to {args.plot}", file=sys.stderr)
     return 0
