@@ -22,6 +22,9 @@ except ImportError:  # the kernels of an older version, run by the side-by-side 
 CONVERT = CONVERSION_NAME  # the kernel column of a conversion
 PROBE = PROBE_NAME  # the kernel column of a roof probe
 ARROW = "->"  # joins the two layouts of a conversion: "FROM->TO"
+#: Joins a schedule to a tunable's value in a case's schedule name: ``strip@64`` is the strip
+#: schedule with width 64 (a suite's list of ``strip_width`` values).
+VARIANT = "@"
 
 
 class CaseKind(str, Enum):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from harness.cases import ARROW, CONVERT, CaseKey, CaseKind, Group
+from harness.cases import ARROW, CONVERT, VARIANT, CaseKey, CaseKind, Group
 from harness.suite import Suite
 from kernels.grid import Extents
 from kernels.registry import all_kernels
@@ -32,6 +32,10 @@ def _groups_at(suite: Suite, threads: int) -> list[Group]:
             for name in suite.kernels:
                 kernel = registry[name]
                 schedules = [s.name for s in kernel.schedules if suite.schedules == "all" or s.name in suite.schedules]
+                widths = dict(suite.strip_widths).get(name)
+                if widths and "strip" in schedules:  # one variant per width to try
+                    at = schedules.index("strip")
+                    schedules[at:at + 1] = [f"strip{VARIANT}{w}" for w in widths]
                 cases = tuple(
                     CaseKey(name, s, b, layout, dtype, grid, threads)
                     for layout in suite.layouts

@@ -182,12 +182,17 @@ def prepare_group(group: Group, ctx: Context, probes: bool = True) -> Prepared:
 
 
 def schedule_with_options(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:
-    """A kernel's schedule ``name`` with the suite's ``kernels.options`` applied to its parameters."""
+    """A kernel's schedule ``name`` with the suite's ``kernels.options`` applied to its parameters;
+    a variant name ``strip@W`` is the strip schedule with width W."""
+    from harness.cases import VARIANT
     from kernels.base import Schedule
 
-    schedule = kernel.schedule(name)
-    if kernel.name in options and schedule.params:
-        given = dict(options[kernel.name])
+    base, _, value = name.partition(VARIANT)
+    schedule = kernel.schedule(base)
+    given = dict(options.get(kernel.name, ()))
+    if value:
+        given["width"] = int(value)
+    if given and schedule.params:
         schedule = Schedule(schedule.name, schedule.summary, tuple((k, given.get(k, v)) for k, v in schedule.params))
     return schedule
 

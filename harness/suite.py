@@ -52,6 +52,9 @@ class Suite:
     conversions_auto: int = 0  # also time conversions among each kernel's best N layouts, per thread count
     mix: tuple[tuple[str, float], ...] = ()
     kernel_options: tuple[tuple[str, tuple[tuple[str, int], ...]], ...] = field(default=())
+    #: Per kernel, strip widths to try: each becomes a schedule variant ``strip@W``, and the ranking
+    #: chooses each layout's best on the choosing rounds like any schedule.
+    strip_widths: tuple[tuple[str, tuple[int, ...]], ...] = field(default=())
 
     def as_dict(self) -> dict[str, Any]:
         """Plain-data form (JSON-serialisable), as stored in run metadata."""
@@ -166,7 +169,7 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
         for s in schedules:
             if s not in known:
                 raise SuiteError(f"unknown schedule '{s}' in kernels.schedules; schedules of the chosen kernels: {', '.join(sorted(known))}")
-    options = []
+    options, tuning = [], []
     for kname, opts in _expect(ksec.get("options", {}), dict, "kernels.options").items():
         if kname not in names:
             raise SuiteError(f"kernels.options names kernel '{kname}', which the suite does not run; run: {', '.join(names)}")
@@ -175,10 +178,18 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
         if "strip_width" in opts and kname not in takes:
             raise SuiteError(f"kernels.options.{kname}.strip_width: kernel '{kname}' has no schedule with a strip width; "
                              f"kernels of this suite that take one: {', '.join(takes) or 'none'}")
-        width = _expect(opts.get("strip_width", 128), int, f"kernels.options.{kname}.strip_width")
-        if width <= 0:
-            raise SuiteError(f"kernels.options.{kname}.strip_width must be positive, got {width}")
-        options.append((kname, (("width", width),)))
+        value = opts.get("strip_width", 128)
+        widths = value if isinstance(value, list) else [value]
+        for width in widths:
+            _expect(width, int, f"kernels.options.{kname}.strip_width")
+            if width <= 0:
+                raise SuiteError(f"kernels.options.{kname}.strip_width must be positive, got {width}")
+        if isinstance(value, list):
+            if not widths or len(set(widths)) != len(widths):
+                raise SuiteError(f"kernels.options.{kname}.strip_width: give distinct widths to try, got {value}")
+            tuning.append((kname, tuple(widths)))
+        else:
+            options.append((kname, (("width", value),)))
     layouts = _layouts(data.get("layouts", {"specs": ["var.z.y.x"]}))
     for layout in layouts:
         for size in sizes:
@@ -226,6 +237,7 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
         conversions_auto=_auto(data.get("conversions", {}).get("auto", 0)),
         mix=tuple(mix),
         kernel_options=tuple(options),
+        strip_widths=tuple(tuning),
     )
 
 

@@ -450,3 +450,38 @@ def test_no_process_outlives_a_stopped_sweep(tmp_path: Path, sig: signal.Signals
     while _session_members(proc.pid) and time.monotonic() < deadline:
         time.sleep(0.2)
     assert _session_members(proc.pid) == []
+
+
+@pytest.mark.slow
+def test_strip_widths_to_try_are_schedule_variants_chosen_per_layout(tmp_path: Path) -> None:
+    """A list of strip widths becomes one schedule variant per width (strip@W); each runs with its
+    width, is validated and timed like any schedule, and the ranking picks each layout's best."""
+    from harness.prepare import schedule_with_options
+
+    extra = "[kernels.options.levelcoef]\nstrip_width = [4, 64]\n"
+    path = _suite(tmp_path, '["levelcoef"]', repeats=6, extra=extra)
+    suite = load_suite(str(path))
+    (group,) = plan(suite, (1,))
+    assert {c.schedule for c in group.cases} == {"column", "pairs", "strip@4", "strip@64"}
+    kernel = get_kernel("levelcoef")
+    assert dict(schedule_with_options(kernel, "strip@4", dict(suite.kernel_options)).params)["width"] == 4
+    assert schedule_with_options(kernel, "strip@4", {}).name == "strip"  # the kernel sees its own schedule
+    out = tmp_path / "run"
+    proc = _sweep(str(path), "--out", str(out))
+    assert proc.returncode == 0, proc.stderr
+    cases = RunStore(out).cases()
+    variants = cases[cases["schedule"].str.startswith("strip@")]
+    assert len(variants) == 2 * 3 * 2 and (variants["status"] == "ok").all()  # 2 widths x 3 layouts x 2 builds
+    # On var.z.y.x the strip sweeps y.x = 256 columns: width 4 and 64 run different trip counts.
+    trips = variants[(variants["layout"] == "var.z.y.x") & (variants["build"] == "parallel")].set_index("schedule")["vector_trip"]
+    assert trips.to_dict() == {"strip@4": 4, "strip@64": 64}
+
+
+@pytest.mark.parametrize("widths, message", [("[]", "distinct widths"), ("[8, 8]", "distinct widths"),
+                                             ("[8, 0]", "must be positive"), ('[8, "wide"]', "must be int")])
+def test_bad_strip_width_lists_are_one_line_errors(tmp_path: Path, widths: str, message: str) -> None:
+    from harness.suite import SuiteError
+
+    path = _suite(tmp_path, '["levelcoef"]', extra=f"[kernels.options.levelcoef]\nstrip_width = {widths}\n")
+    with pytest.raises(SuiteError, match=message):
+        load_suite(str(path))
