@@ -21,6 +21,7 @@ from kernels.errors import StridewiseError
 from harness.store import DiskFull, RunMetadata, RunStore, RunStoreError
 from harness.conversions import auto_conversions
 from harness.recording import compile_totals, drain
+from harness.shards import shard_groups
 from harness.suite import Suite, SuiteError, load_suite, parse_suite, read_suite_text
 from harness.summary import render_summary
 from harness.worker import WorkerPlan, worker_environment, worker_main
@@ -69,8 +70,9 @@ def run_sweep(
     quiet: bool = False,
     no_vector_report: bool = False,
     repeat: int | None = None,
+    shard: tuple[int, int] | None = None,
 ) -> int:
-    """Run (or resume) a sweep; returns the exit status."""
+    """Run (or resume) a sweep, or part K of N of it (``shard``); returns the exit status."""
     fingerprint = machine.fingerprint()
     if resume:
         store = RunStore(Path(resume))
@@ -89,6 +91,8 @@ def run_sweep(
             print(f"stridewise: warning: resuming on machine {fingerprint['machine_id']}, the run began on "
                   f"{old.get('fingerprint', {}).get('machine_id')}", file=sys.stderr)
         metadata = old
+        if old.get("shard"):
+            shard = (int(old["shard"]["index"]), int(old["shard"]["count"]))
         reps = int(old.get("suite", {}).get("timing", {}).get("repetitions", 1))
         suite = replace(suite, timing=replace(suite.timing, repetitions=reps))
     else:
@@ -110,6 +114,11 @@ def run_sweep(
                   + ", and its threads will share cores (its cases are flagged oversubscribed and left out of thread "
                   "scaling)", file=sys.stderr)
     groups = plan(suite, counts)
+    if shard is not None:
+        groups = shard_groups(groups, suite, shard)
+        if suite.conversions_auto:
+            print("stridewise: warning: conversions.auto is skipped in a shard (a shard does not see the other shards' "
+                  "winners); list the conversions to price in [conversions] pairs", file=sys.stderr)
     check_memory(groups, suite)
     for line in power_warnings(groups, suite) + working_set_warnings(groups, suite, machine.private_cache_bytes(2)):
         print(f"stridewise: warning: {line}", file=sys.stderr)
@@ -131,6 +140,8 @@ def run_sweep(
             "timing_policy": {"order": "seeded shuffle per round", "clock": "time.perf_counter_ns"},
             "jit": {"error_model": "numpy", "fastmath": False, "cache_dir": _cache_dir()},
         }
+        if shard is not None:
+            metadata["shard"] = {"index": shard[0], "count": shard[1], "groups": sorted({g.label for g in groups})}
         store.create(suite_text, metadata)
     else:
         metadata["status"] = "running"
@@ -188,7 +199,8 @@ def run_sweep(
     # the process half way (the run's data are safe either way; the exit status tells of the signal).
     with stopper.installed():
         try:
-            _run_thread_counts(counts, todo, suite, store, stop_event, progress, run_worker, crashed)
+            _run_thread_counts(counts, todo, suite if shard is None else replace(suite, conversions_auto=0), store,
+                               stop_event, progress, run_worker, crashed)
         except DiskFull as exc:
             progress.close()
             metadata["status"] = "stopped: disk full"
