@@ -14,7 +14,8 @@ def auto_conversions(store: RunStore, suite: Suite, threads: int) -> list[Group]
     so far: the first ``conversions.auto`` layouts of tier 1 in median order, plus tier 1's
     simplest layout (the one a recommendation prefers on a tie); every ordered pair of picks of
     different kernels that is not measured yet."""
-    from harness.rank import RankOptions, load_runs, rank_runs
+    from harness.rank import RankOptions, rank_runs
+    from harness.runs import load_runs
 
     try:
         table = rank_runs(load_runs([str(store.path)]), RankOptions()).table

@@ -34,7 +34,7 @@ CASE_COLUMNS = [
 ]
 #: Columns added after the first format; a reader fills them in when an older run lacks them.
 OPTIONAL_COLUMNS = {"repetition": 0, "version": "", "group_overhead_ns": None, "vector_code": None, "vector_trip": None,
-                    "oversubscribed": None}
+                    "oversubscribed": None, "machine_id": ""}
 #: Columns holding True, False or nothing; read back as Python booleans or None (CSV holds text).
 BOOLEAN_COLUMNS = ("overhead_bound", "loaded_from_cache", "vectorised", "vector_code", "oversubscribed")
 
@@ -52,6 +52,11 @@ class RunMetadata:
     @property
     def machine_id(self) -> str | None:
         return self.fingerprint.get("machine_id")
+
+    def for_machine(self, machine_id: str) -> RunMetadata:
+        """The metadata one machine of a merged run saw (its fingerprint, workers and roofs)."""
+        own = (self.raw.get("machines") or {}).get(machine_id)
+        return self if own is None else RunMetadata({**self.raw, **own})
 
     @property
     def suite(self) -> dict[str, Any]:

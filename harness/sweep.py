@@ -257,7 +257,8 @@ def _run_thread_counts(counts: Any, todo: list[Group], suite: Suite, store: RunS
 
 def _summary(store: RunStore, cases: Any, metadata: dict[str, Any]) -> str:
     """The ranking report of this run; the plain case list when nothing can be ranked yet."""
-    from harness.rank import RankOptions, load_runs, rank_runs
+    from harness.rank import RankOptions, rank_runs
+    from harness.runs import load_runs
     from harness.report import render_markdown
 
     try:

@@ -24,7 +24,8 @@ def add_parser(sub: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from harness.rank import RankOptions, load_runs, rank_runs
+    from harness.rank import RankOptions, rank_runs
+    from harness.runs import load_runs
     from harness.report import render
     from kernels.notation import parse_layout
 
