@@ -12,6 +12,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
+#: Test-only environment variable: the machine id to record instead of the measured one.
+FORCED_MACHINE_ID_ENV = "STRIDEWISE_TEST_MACHINE_ID"
 THREADING_ENV_PREFIXES = ("OMP_", "NUMBA_", "KMP_", "OPENBLAS_", "MKL_", "GOMP_")
 
 
@@ -230,7 +232,8 @@ def fingerprint() -> dict[str, Any]:
         "commit": git_commit(Path(__file__).resolve().parent.parent),
         "kernels_source_hash": SOURCE_HASH,
     }
-    info["machine_id"] = machine_id(info)
+    # Test-only: a forced machine id, to try several-machine reports with runs of one machine.
+    info["machine_id"] = os.environ.get(FORCED_MACHINE_ID_ENV) or machine_id(info)
     return info
 
 

@@ -192,3 +192,30 @@ def traces(ranking: Any) -> pd.DataFrame:
     smp = smp.sort_values(["machine", "kernel", "grid", "dtype", "threads", "round"])
     smp["relative"] = smp["ns"] / smp.groupby(["machine", "case_id"])["ns"].transform("median")
     return smp[keys + ["round", "position", "ns", "relative"]].reset_index(drop=True)
+
+
+def across_machines(ranking: Any) -> list[dict[str, Any]]:
+    """Per (kernel, grid, dtype, threads) ranked on two or more machines: each layout's ``x best``
+    (with interval) and tier on each machine, and the best single layout across machines, the
+    one whose worst slowdown over the machines is lowest."""
+    out = []
+    t = ranking.table
+    for (kernel, grid, dtype, threads), grp in t.groupby(["kernel", "grid", "dtype", "threads"], sort=False):
+        machines = list(dict.fromkeys(grp["machine"]))
+        if len(machines) < 2:
+            continue
+        layouts = sorted(set.intersection(*(set(grp[grp["machine"] == m]["layout"]) for m in machines)))
+        if not layouts:
+            continue
+        cell = {(r.machine, r.layout): r for r in grp.itertuples()}
+        worst = {l: max(machines, key=lambda m: cell[(m, l)].time_vs_best) for l in layouts}
+        best = min(layouts, key=lambda l: (cell[(worst[l], l)].time_vs_best, l))
+        w = cell[(worst[best], best)]
+        out.append({
+            "kernel": kernel, "grid": grid, "dtype": dtype, "threads": int(threads), "machines": machines, "layouts": layouts,
+            "slowdown": np.array([[cell[(m, l)].time_vs_best for m in machines] for l in layouts]),
+            "cells": cell, "winners": {m: grp[grp["machine"] == m].sort_values("rank").iloc[0]["layout"] for m in machines},
+            "best_single": best, "worst_machine": worst[best],
+            "worst_slowdown": (w.time_vs_best, getattr(w, "time_vs_best_lo", np.nan), getattr(w, "time_vs_best_hi", np.nan)),
+        })
+    return out

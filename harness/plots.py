@@ -61,7 +61,28 @@ def plot_ranking(ranking: Any, directory: str) -> list[str]:
     _forest(ranking, directory, written)
     _per_point(ranking, directory, written)
     _traces(ranking, directory, written)
+    _machines(ranking, directory, written)
     return written
+
+
+def _machines(ranking: Any, directory: str, written: list[str]) -> None:
+    """Per kernel ranked on several machines: layout x machine, time over each machine's best."""
+    import numpy as np
+    from matplotlib.colors import LogNorm
+
+    plt = _pyplot()
+    for g in pictures.across_machines(ranking):
+        data = g["slowdown"]
+        fig, ax = plt.subplots(figsize=(2.5 + 1.3 * len(g["machines"]), 1.5 + 0.42 * len(g["layouts"])))
+        top = max(2.0, float(np.nanmax(data)))
+        im = ax.imshow(data, cmap="magma_r", norm=LogNorm(vmin=1.0, vmax=top), aspect="auto")
+        ax.set_xticks(range(len(g["machines"])), g["machines"], fontsize=7)
+        ax.set_yticks(range(len(g["layouts"])), [("* " if l == g["best_single"] else "") + l for l in g["layouts"]], fontsize=8)
+        for (i, j), v in np.ndenumerate(data):
+            ax.text(j, i, f"{v:.2f}", ha="center", va="center", fontsize=7, color="white" if v > top ** 0.5 else "black")
+        fig.colorbar(im, ax=ax, label="time over the machine's best (log scale)")
+        ax.set_title(f"{g['kernel']} {g['grid']} {g['threads']} thr: * = best single layout across machines", fontsize=8)
+        _save(fig, os.path.join(directory, f"machines_{_tag(g['kernel'], g['grid'], g['dtype'], g['threads'])}.png"), written)
 
 
 def _heatmap(heat: pictures.Heatmap, path: str, written: list[str]) -> None:

@@ -13,7 +13,8 @@ from harness.intervals import Interval
 from harness.machine import numa_note
 from harness.metrics import OVERHEAD_MULTIPLE, SCHEDULE_LIMITED_PCT
 from harness.rank import Ranking
-from harness.report_parts import failed_section, fmt_interval, fmt_number, mix_section, repetition_section, scaling_section
+from harness.report_parts import (failed_section, fmt_interval, fmt_number, machines_section, mix_section,
+                                  repetition_section, scaling_section)
 from harness.store import RunMetadata, vector_flag
 
 FAMILY_WORDS = {"columns": "column solves", "stencils": "stencils"}
@@ -217,10 +218,7 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
     out += repetition_section(r)
     out += scaling_section(r)
     out += mix_section(r)
-    if not r.machine_diffs.empty:
-        out += ["## Where the winner differs between machines", ""]
-        out.append(tabulate(r.machine_diffs.values.tolist(), headers=list(map(str, r.machine_diffs.columns)), tablefmt="github"))
-        out.append("")
+    out += machines_section(r)
     if not r.failed.empty:
         out += failed_section(r.failed)
     return "\n".join(out)

@@ -103,3 +103,34 @@ def failed_section(failed: pd.DataFrame) -> list[str]:
     columns = [c for c in ("machine", "kernel", "schedule", "build", "layout", "dtype", "threads", "status", "message") if c in failed]
     rows = [[f[c] for c in columns] for _, f in failed.iterrows()]
     return ["## Failed cases", "", tabulate(rows, headers=columns, tablefmt="github"), ""]
+
+
+def machines_section(r: Ranking) -> list[str]:
+    """Which layout wins on which machine, with each machine's tiers, and the best single layout."""
+    from harness.pictures import across_machines
+
+    groups = across_machines(r)
+    if not groups:
+        return []
+    out = ["## Across machines", "",
+           "Each layout's time over the best on each machine (`x best`, with its interval) and its tier there; the best "
+           "single layout is the one whose worst slowdown over the machines is lowest.", ""]
+    for g in groups:
+        out.append(f"### {g['kernel']}, {g['grid']}, {g['dtype']}, {g['threads']} thread(s)")
+        out.append("")
+        rows = []
+        for layout in g["layouts"]:
+            row = [layout]
+            for m in g["machines"]:
+                c = g["cells"][(m, layout)]
+                tier = "" if c.tier != c.tier else f", tier {int(c.tier)}"
+                row.append(fmt_interval(c._asdict(), "time_vs_best", ".2f") + tier)
+            rows.append(row)
+        out.append(tabulate(rows, headers=["layout"] + [f"machine {m}" for m in g["machines"]], tablefmt="github",
+                            disable_numparse=True))
+        value, lo, hi = g["worst_slowdown"]
+        bracket = f" [{lo:.2f}, {hi:.2f}]" if lo == lo else ""
+        winners = "; ".join(f"`{w}` on {m}" for m, w in g["winners"].items())
+        out += ["", f"Rank 1 per machine: {winners}. Best single layout across machines: `{g['best_single']}`, at most "
+                    f"{value:.2f}x{bracket} the best layout's time on any machine (its worst: {g['worst_machine']}).", ""]
+    return out

@@ -86,6 +86,7 @@ def test_two_machines_keep_their_machine_ids_and_rank_side_by_side(shards: list[
     ranked = _cli(capsys, "rank", str(merged))
     assert ranked.returncode == 0, ranked.stderr
     assert ranked.stdout.count("Machine `") == 2 and "machine second000000" in ranked.stdout
+    assert "## Across machines" in ranked.stdout and "Best single layout across machines" in ranked.stdout
 
 
 @pytest.mark.slow
@@ -103,3 +104,11 @@ def test_merge_refuses_a_case_twice_on_one_machine(shards: list[Path], tmp_path:
     again = _relabel(shards[0], tmp_path / "again")
     proc = _cli(capsys, "merge", str(shards[0]), str(again), "--out", str(tmp_path / "m"))
     assert proc.returncode == 2 and "is in both" in proc.stderr and "Traceback" not in proc.stderr
+
+
+def test_a_forced_machine_id_is_recorded_for_trying_several_machine_reports(monkeypatch: pytest.MonkeyPatch) -> None:
+    from harness.machine import FORCED_MACHINE_ID_ENV, fingerprint
+
+    measured = fingerprint()["machine_id"]
+    monkeypatch.setenv(FORCED_MACHINE_ID_ENV, "lab-node-b")
+    assert fingerprint()["machine_id"] == "lab-node-b" != measured

@@ -159,3 +159,35 @@ def test_oversubscribed_thread_counts_are_left_out_of_scaling() -> None:
     table = ranking.table.assign(oversubscribed=ranking.table["threads"] == 2)
     scaling, _ = scaling_and_flips(table, ranking.rounds, ranking.options)
     assert set(scaling["threads"]) == {1}
+
+
+def test_across_machines_reads_each_machines_table_and_picks_the_lowest_worst_case() -> None:
+    """Two machines (the second is the first with invented changes): the per-machine cells equal
+    each machine's ranking rows, and the best single layout has the lowest worst-case slowdown."""
+    one = _ranking()
+    cases, samples = one.runs.cases.copy(), one.runs.samples.copy()
+    factor = {"var.z.y.x": 3.0, "y.x.z.var": 1.0, "y/4.x/4.var.z.y%4.x%4": 1.0}  # var.z.y.x 3x slower on m2
+    cases2 = cases.assign(machine="m2", case_id=cases["case_id"] + "|m2")
+    samples2 = samples.assign(machine="m2", case_id=samples["case_id"] + "|m2")
+    samples2["ns"] = samples2["ns"] * samples2["case_id"].map(lambda c: factor[c.split("|")[3]])
+    meta = one.runs.metadata["m"]
+    runs = Runs(pd.concat([cases, cases2], ignore_index=True), pd.concat([samples, samples2], ignore_index=True),
+                {"m": meta, "m2": meta}, {"m": [meta], "m2": [meta]})
+    ranking = rank_runs(runs, RankOptions())
+    groups = pictures.across_machines(ranking)
+    assert len(groups) == 4  # 2 kernels x 2 thread counts
+    t = ranking.table
+    for g in groups:
+        assert g["machines"] == ["m", "m2"]
+        for i, layout in enumerate(g["layouts"]):
+            for j, machine in enumerate(g["machines"]):
+                row = t[(t["machine"] == machine) & (t["kernel"] == g["kernel"]) & (t["threads"] == g["threads"])
+                        & (t["layout"] == layout)].iloc[0]
+                assert g["slowdown"][i, j] == pytest.approx(row["time_vs_best"])
+        worst = g["slowdown"].max(axis=1)
+        assert g["best_single"] == g["layouts"][int(np.argmin(worst))]
+    k1 = next(g for g in groups if g["kernel"] == "k1" and g["threads"] == 1)
+    # k1 at 1 thread: var.z.y.x wins on m (1.0 ms) but takes 2x the best on m2 (3.0 against 1.5 ms);
+    # the tiled layout is at worst 1.5x (on m): the safer single choice.
+    assert k1["winners"] == {"m": "var.z.y.x", "m2": "y/4.x/4.var.z.y%4.x%4"}
+    assert k1["best_single"] == "y/4.x/4.var.z.y%4.x%4" and k1["worst_machine"] == "m"
