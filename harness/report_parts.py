@@ -131,6 +131,10 @@ def machines_section(r: Ranking) -> list[str]:
         value, lo, hi = g["worst_slowdown"]
         bracket = f" [{lo:.2f}, {hi:.2f}]" if lo == lo else ""
         winners = "; ".join(f"`{w}` on {m}" for m, w in g["winners"].items())
-        out += ["", f"Rank 1 per machine: {winners}. Best single layout across machines: `{g['best_single']}`, at most "
-                    f"{value:.2f}x{bracket} the best layout's time on any machine (its worst: {g['worst_machine']}).", ""]
+        if set(g["winners"].values()) == {g["best_single"]}:
+            verdict = f"`{g['best_single']}` is rank 1 on every machine."
+        else:
+            verdict = (f"Rank 1 per machine: {winners}. Best single layout across machines: `{g['best_single']}`, at most "
+                       f"{value:.2f}x{bracket} the best layout's time on any machine (its worst: {g['worst_machine']}).")
+        out += ["", verdict, ""]
     return out
