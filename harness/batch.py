@@ -14,7 +14,7 @@ import sys
 from pathlib import Path
 
 from harness.plan import plan
-from harness.shards import _key, assign, expected_seconds
+from harness.shards import assign, expected_seconds, group_key
 from harness.suite import Suite
 
 #: The expected time is a rough model: the time limit allows this many times it.
@@ -29,7 +29,7 @@ def shard_seconds(suite: Suite, shards: int, thread_counts: tuple[int, ...]) -> 
     part = assign(groups, suite, shards)
     loads = [0.0] * shards
     for g in groups:
-        loads[part[_key(g)] - 1] += expected_seconds(g, suite)
+        loads[part[group_key(g)] - 1] += expected_seconds(g, suite)
     return loads
 
 

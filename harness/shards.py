@@ -50,7 +50,7 @@ def assign(groups: list[Group], suite: Suite, count: int) -> dict[str, int]:
     """Part number (1..count) of each group (keyed by its label without the repetition)."""
     cost: dict[str, float] = {}
     for g in groups:  # a group's repetitions share its part
-        cost[_key(g)] = cost.get(_key(g), 0.0) + expected_seconds(g, suite)
+        cost[group_key(g)] = cost.get(group_key(g), 0.0) + expected_seconds(g, suite)
     loads = [0.0] * count
     part = {}
     for label in sorted(cost, key=lambda lab: (-cost[lab], lab)):
@@ -60,7 +60,7 @@ def assign(groups: list[Group], suite: Suite, count: int) -> dict[str, int]:
     return part
 
 
-def _key(group: Group) -> str:
+def group_key(group: Group) -> str:
     """A group's label without its repetition: what must stay on one machine."""
     return replace(group, repetition=0).label
 
@@ -69,4 +69,4 @@ def shard_groups(groups: list[Group], suite: Suite, shard: tuple[int, int]) -> l
     """The groups of part K of N, in plan order."""
     k, n = shard
     part = assign(groups, suite, n)
-    return [g for g in groups if part[_key(g)] == k]
+    return [g for g in groups if part[group_key(g)] == k]

@@ -14,7 +14,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from harness.plan import plan
-from harness.shards import _key, assign, expected_seconds, parse_shard, shard_groups
+from harness.shards import assign, expected_seconds, group_key, parse_shard, shard_groups
 from harness.suite import load_suite, parse_suite
 from harness.store import RunStore
 from kernels.errors import StridewiseError
@@ -42,7 +42,7 @@ def test_shards_cover_every_case_exactly_once_and_never_split_a_group(kernels, l
     owner = {}
     for k, part in enumerate(shards):
         for g in part:
-            assert owner.setdefault(_key(g), k) == k  # a group and its repetitions in one part
+            assert owner.setdefault(group_key(g), k) == k  # a group and its repetitions in one part
 
 
 def test_parts_are_balanced_within_one_group_of_the_mean() -> None:
@@ -54,7 +54,7 @@ def test_parts_are_balanced_within_one_group_of_the_mean() -> None:
         part = assign(groups, suite, parts)
         loads = Counter()
         for g in groups:
-            loads[part[_key(g)]] += expected_seconds(g, suite)
+            loads[part[group_key(g)]] += expected_seconds(g, suite)
         largest = max(expected_seconds(g, suite) for g in groups)
         assert max(loads.values()) <= sum(loads.values()) / parts + largest
         assert assign(groups, suite, parts) == part  # the same split on every machine
