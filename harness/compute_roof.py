@@ -23,6 +23,7 @@ class ComputeRoof:
 
     threads: int
     dtype: str
+    cores: int  # cores the closed form counts: the threads, at most the usable cores
     flops_per_s: float
     closed_form_flops_per_s: float | None
     clock_hz: float | None
@@ -31,22 +32,6 @@ class ComputeRoof:
 
     def as_dict(self) -> dict[str, Any]:
         return asdict(self)
-
-
-def nominal_clock_hz() -> float | None:
-    """The clock the OS reports for CPU 0: cpufreq's maximum, else /proc/cpuinfo's "cpu MHz"."""
-    from harness.machine import _read
-
-    max_khz = _read("/sys/devices/system/cpu/cpu0/cpufreq/cpuinfo_max_freq")
-    if max_khz and max_khz.isdigit() and int(max_khz) > 0:
-        return int(max_khz) * 1e3
-    for line in (_read("/proc/cpuinfo") or "").splitlines():
-        if line.startswith("cpu MHz"):
-            try:
-                return float(line.split(":", 1)[1]) * 1e6
-            except ValueError:
-                return None
-    return None
 
 
 def vector_lanes(features: list[str], itemsize: int) -> tuple[int, int]:
@@ -65,19 +50,20 @@ def measure(threads: int, dtype: str, features: list[str], cores: int) -> Comput
     """Measure the FMA ceiling at the current numba thread count (call inside a worker)."""
     import numpy as np
 
+    from harness.machine import nominal_clock_hz
     from kernels.peak import fma_rates
 
     lanes, units = vector_lanes(features, np.dtype(dtype).itemsize)
     clock = nominal_clock_hz()
+    used = min(threads, cores)
     best = max(fma_rates(threads, dtype))
-    return ComputeRoof(threads, dtype, best, closed_form(min(threads, cores), clock, lanes, units), clock, lanes, units)
+    return ComputeRoof(threads, dtype, used, best, closed_form(used, clock, lanes, units), clock, lanes, units)
 
 
 def describe_ceiling(ceiling: dict[str, Any]) -> str:
     """One line: the measured FMA ceiling and its closed form, e.g. for the roof command."""
     text = f"FMA ceiling {ceiling['flops_per_s'] / 1e9:.1f} GFLOP/s {ceiling['dtype']}"
     if ceiling.get("closed_form_flops_per_s"):
-        cores = round(ceiling["closed_form_flops_per_s"] / (ceiling["clock_hz"] * ceiling["lanes"] * 2 * ceiling["fma_units"]))
-        text += (f" (closed form {ceiling['closed_form_flops_per_s'] / 1e9:.1f} = {cores} core(s) x "
+        text += (f" (closed form {ceiling['closed_form_flops_per_s'] / 1e9:.1f} = {ceiling['cores']} core(s) x "
                  f"{ceiling['clock_hz'] / 1e9:.2f} GHz nominal x {ceiling['lanes']} lanes x 2 x {ceiling['fma_units']} FMA units)")
     return text

@@ -164,6 +164,20 @@ def numa_note(fingerprint: dict[str, Any]) -> str | None:
             "times include remote accesses that a code first-touching with its own schedule would not pay.")
 
 
+def nominal_clock_hz() -> float | None:
+    """The clock the OS reports for CPU 0: cpufreq's maximum, else /proc/cpuinfo's "cpu MHz"."""
+    max_khz = governor()["max_khz"]
+    if max_khz:
+        return max_khz * 1e3
+    for line in (_read("/proc/cpuinfo") or "").splitlines():
+        if line.startswith("cpu MHz"):
+            try:
+                return float(line.split(":", 1)[1]) * 1e6
+            except ValueError:
+                return None
+    return None
+
+
 def governor_warning(info: dict[str, Any]) -> str | None:
     """A warning when the frequency governor lets the clock float during timing."""
     gov = info.get("governor")

@@ -16,6 +16,7 @@ from typing import Any
 
 import pandas as pd
 
+from harness.runs import machine_ids
 from harness.store import RunData, RunStore
 from kernels.errors import StridewiseError
 
@@ -26,11 +27,6 @@ class MergeError(StridewiseError):
 
 def _field(run: RunData, name: str) -> Any:
     return run.metadata.raw.get("suite_hash") if name == "suite_hash" else run.metadata.fingerprint.get(name)
-
-
-def _machine_ids(frame: pd.DataFrame, default: str) -> pd.Series:
-    ids = frame["machine_id"].astype("string").fillna("").astype(str) if "machine_id" in frame else pd.Series("", index=frame.index)
-    return ids.where(ids != "", default)
 
 
 def merge_runs(paths: list[str], out: str) -> Path:
@@ -53,14 +49,14 @@ def merge_runs(paths: list[str], out: str) -> Path:
     round_shift = repetition_shift = 0
     for path, run in zip(paths, runs):
         default = run.metadata.machine_id or Path(path).name
-        cases = run.cases.assign(machine_id=_machine_ids(run.cases, default))
+        cases = run.cases.assign(machine_id=machine_ids(run.cases, default))
         for cid, rep, mid in zip(cases["case_id"], cases["repetition"], cases["machine_id"]):
             key = (mid, str(cid), int(rep))
             if key in owner:
                 raise MergeError(f"case {cid} (repetition {rep}, machine {mid}) is in both {owner[key]} and {path}; "
                                  "each case may be merged once per machine")
             owner[key] = path
-        samples = run.samples.assign(machine_id=_machine_ids(run.samples, default))
+        samples = run.samples.assign(machine_id=machine_ids(run.samples, default))
         cases_parts.append(cases.assign(repetition=cases["repetition"] + repetition_shift))
         samples_parts.append(samples.assign(round=samples["round"] + round_shift,
                                             repetition=samples["repetition"] + repetition_shift))

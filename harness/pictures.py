@@ -84,7 +84,7 @@ def roof_curves(ranking: Any, machine: str) -> dict[int, RoofCurve]:
     return {int(t): RoofCurve.from_dict(w["roof"]) for t, w in workers.items() if "roof" in w}
 
 
-def compute_ceilings(ranking: Any, machine: str) -> dict[tuple[int, str], float]:
+def fma_ceilings(ranking: Any, machine: str) -> dict[tuple[int, str], float]:
     """Measured FMA ceilings (flop/s) of a machine's run, by (threads, dtype)."""
     md = ranking.runs.metadata.get(machine)
     workers = md.workers if md is not None else {}
@@ -98,7 +98,7 @@ def _intensity(table: pd.DataFrame) -> pd.Series:
 def memory_bound(ranking: Any, machine: str, kernel_rows: pd.DataFrame) -> bool:
     """True when the kernel's intensity (flop/byte, byte model) is under the ridge point of the
     1-thread roofline (FMA ceiling over memory roof); True when either is unmeasured."""
-    curves, peaks = roof_curves(ranking, machine), compute_ceilings(ranking, machine)
+    curves, peaks = roof_curves(ranking, machine), fma_ceilings(ranking, machine)
     dtype = kernel_rows["dtype"].iloc[0]
     if 1 not in curves or (1, dtype) not in peaks:
         return True

@@ -67,46 +67,44 @@ def plot_ranking(ranking: Any, directory: str) -> list[str]:
 
 def _machines(ranking: Any, directory: str, written: list[str]) -> None:
     """Per kernel ranked on several machines: layout x machine, time over each machine's best."""
-    import numpy as np
-    from matplotlib.colors import LogNorm
-
     plt = _pyplot()
     for g in pictures.across_machines(ranking):
-        data = g["slowdown"]
         fig, ax = plt.subplots(figsize=(2.5 + 1.3 * len(g["machines"]), 1.5 + 0.42 * len(g["layouts"])))
-        top = max(2.0, float(np.nanmax(data)))
-        im = ax.imshow(data, cmap="magma_r", norm=LogNorm(vmin=1.0, vmax=top), aspect="auto")
+        _slowdown_image(fig, ax, g["slowdown"], "time over the machine's best (log scale)")
         ax.set_xticks(range(len(g["machines"])), g["machines"], fontsize=7)
         ax.set_yticks(range(len(g["layouts"])), [("* " if l == g["best_single"] else "") + l for l in g["layouts"]], fontsize=8)
-        for (i, j), v in np.ndenumerate(data):
-            ax.text(j, i, f"{v:.2f}", ha="center", va="center", fontsize=7, color="white" if v > top ** 0.5 else "black")
-        fig.colorbar(im, ax=ax, label="time over the machine's best (log scale)")
         ax.set_title(f"{g['kernel']} {g['grid']} {g['threads']} thr: * = best single layout across machines", fontsize=8)
         _save(fig, os.path.join(directory, f"machines_{_tag(g['kernel'], g['grid'], g['dtype'], g['threads'])}.png"), written)
 
 
-def _heatmap(heat: pictures.Heatmap, path: str, written: list[str]) -> None:
+def _slowdown_image(fig: Any, ax: Any, data: Any, label: str) -> None:
+    """Slowdowns (1 = best) on a log colour scale, each finite cell labelled, with a colour bar."""
     import numpy as np
     from matplotlib.colors import LogNorm
-    from matplotlib.patches import Rectangle
 
-    plt = _pyplot()
-    data = heat.slowdown
-    fig, ax = plt.subplots(figsize=(3 + 0.75 * len(heat.columns), 1.6 + 0.42 * len(heat.rows)))
     top = max(2.0, float(np.nanmax(data))) if np.isfinite(data).any() else 2.0
     im = ax.imshow(data, cmap="magma_r", norm=LogNorm(vmin=1.0, vmax=top), aspect="auto")
-    labels = [f"{k}\n{t} thr" if k != pictures.STEP else f"weighted\nstep, {t} thr" for k, t in heat.columns]
-    ax.set_xticks(range(len(labels)), labels, fontsize=7)
-    ax.set_yticks(range(len(heat.rows)), heat.rows, fontsize=8)
     for (i, j), v in np.ndenumerate(data):
         if np.isfinite(v):
             ax.text(j, i, f"{v:.2f}", ha="center", va="center", fontsize=7, color="white" if v > top ** 0.5 else "black")
-        if heat.leading[i, j]:
-            ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, edgecolor="#00a0ff", lw=2))
-    bar = fig.colorbar(im, ax=ax, label="time over the column's best (log scale)")
+    bar = fig.colorbar(im, ax=ax, label=label)
     ticks = [v for v in (1, 1.1, 1.25, 1.5, 2, 3, 4, 6, 8, 12, 16) if v <= top]
     bar.set_ticks(ticks, labels=[f"{v:g}x" for v in ticks])
     bar.minorticks_off()
+
+
+def _heatmap(heat: pictures.Heatmap, path: str, written: list[str]) -> None:
+    import numpy as np
+    from matplotlib.patches import Rectangle
+
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(3 + 0.75 * len(heat.columns), 1.6 + 0.42 * len(heat.rows)))
+    _slowdown_image(fig, ax, heat.slowdown, "time over the column's best (log scale)")
+    labels = [f"{k}\n{t} thr" if k != pictures.STEP else f"weighted\nstep, {t} thr" for k, t in heat.columns]
+    ax.set_xticks(range(len(labels)), labels, fontsize=7)
+    ax.set_yticks(range(len(heat.rows)), heat.rows, fontsize=8)
+    for i, j in zip(*np.nonzero(heat.leading)):
+        ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, edgecolor="#00a0ff", lw=2))
     weights = ", ".join(f"{k} x{w:g}" for k, w in heat.weights.items())
     ax.set_title(f"{heat.grid} {heat.dtype}: slowdown, rows in rank order, tier 1 outlined"
                  + (f"\nstep weights: {weights}" if weights else ""), fontsize=9)
@@ -148,7 +146,7 @@ def _roofline(ranking: Any, directory: str, written: list[str]) -> None:
     plt = _pyplot()
     points = pictures.roofline_points(ranking)
     for (machine, dtype), pts in points.groupby(["machine", "dtype"], sort=False):
-        curves, peaks = pictures.roof_curves(ranking, machine), pictures.compute_ceilings(ranking, machine)
+        curves, peaks = pictures.roof_curves(ranking, machine), pictures.fma_ceilings(ranking, machine)
         fig, ax = plt.subplots(figsize=(7.5, 5))
         xs = np.logspace(np.log10(pts["intensity"].min() / 4), np.log10(max(pts["intensity"].max() * 8, 1.0)), 60)
         threads = max(curves) if curves else None

@@ -33,6 +33,8 @@ from harness.runs import Runs
 from kernels.errors import StridewiseError
 
 GROUP_KEYS = ["machine", "kernel", "grid", "dtype", "threads"]
+
+
 @dataclass(frozen=True)
 class RankOptions:
     alpha: float = 0.05

@@ -79,21 +79,20 @@ def load_runs(paths: list[str]) -> Runs:
                                   f"{identity[1]}): pooling them would count its samples twice")
         started[identity] = path
         # Repetitions of a group write one row per case each; the first describes the case.
-        cases = cases.assign(machine=_machines(cases, machine), run=str(path)).drop_duplicates(["machine", "case_id"])
+        cases = cases.assign(machine=machine_ids(cases, machine), run=str(path)).drop_duplicates(["machine", "case_id"])
         repetition = samples["repetition"] if "repetition" in samples else 0
-        samples = samples.assign(machine=_machines(samples, machine), run=str(path),
+        samples = samples.assign(machine=machine_ids(samples, machine), run=str(path),
                                  round=samples["round"] + index * RUN_ROUND_OFFSET, block=index * RUN_BLOCK_OFFSET + repetition)
         cases_list.append(cases)
         samples_list.append(samples[samples["phase"] == "measure"])
         for m in dict.fromkeys(cases["machine"]):
-            meta.setdefault(m, md.for_machine(m))
-            every.setdefault(m, []).append(md.for_machine(m))
+            seen_by = md.for_machine(m)
+            meta.setdefault(m, seen_by)
+            every.setdefault(m, []).append(seen_by)
     return Runs(pd.concat(cases_list, ignore_index=True), pd.concat(samples_list, ignore_index=True), meta, every)
 
 
-
-
-def _machines(frame: pd.DataFrame, default: str) -> pd.Series:
+def machine_ids(frame: pd.DataFrame, default: str) -> pd.Series:
     """Each row's machine: its ``machine_id`` (a merged run) or the run's own."""
     if "machine_id" not in frame:
         return pd.Series(default, index=frame.index)

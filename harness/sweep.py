@@ -158,7 +158,7 @@ def run_sweep(
     # Twice the last-level cache per thread: the threads of a virtual machine may sit on different
     # last-level caches (measured: at 2 threads, one reported cache's worth per thread left a
     # sample after a same-buffers sibling 2-3 % faster).
-    flush_bytes = suite.timing.flush_bytes or 2 * (machine.last_level_cache_bytes() or 64 << 20)
+    flush_per_thread = 2 * (machine.last_level_cache_bytes() or 64 << 20)
 
     def run_worker(threads: int, groups_: tuple[Group, ...]) -> str | None:
         wplan = WorkerPlan(
@@ -169,7 +169,7 @@ def run_sweep(
             pin=suite.threads.pin,
             kernel_options=suite.kernel_options,
             inspect_vectorisation=not no_vector_report,
-            flush_bytes=flush_bytes if suite.timing.flush_bytes else flush_bytes * threads,
+            flush_bytes=suite.timing.flush_bytes or flush_per_thread * threads,
         )
         q = ctx.Queue()
         # Rounds done, in shared memory: a queue message per round woke the worker's feeder thread

@@ -69,6 +69,26 @@ def spread(order: list[str], owner: dict[str, str], last: str | None) -> list[st
     return out
 
 
+def evictor(nbytes: int) -> Callable[[], int]:
+    """A call that pushes kernel data out of cache: a read-only sweep over ``nbytes`` of memory.
+
+    The buffer is allocated on the first call (most sweeps never evict) and written once: pages
+    that were never written all map the one shared zero page, so reading them evicts nothing.
+    """
+    from kernels.parallel import evict_caches
+
+    buffer: list[Any] = []
+
+    def evict() -> int:
+        if not buffer:
+            import numpy as np
+
+            buffer.append(np.ones(max(nbytes // 8, 8), dtype=np.int64))
+        return evict_caches(buffer[0])
+
+    return evict
+
+
 def _measure(call: Callable[[], Any]) -> int:
     start = time.perf_counter_ns()
     call()

@@ -43,11 +43,9 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
     wanted = os.path.realpath(os.path.join(version_dir, "kernels"))
     if here != wanted:
         raise RuntimeError(f"kernels were imported from {here}, not from the version under test at {wanted}")
-    import numpy as np
-
     from harness.cases import CaseKey, Group
     from harness.sampling import Timing
-    from harness.timing import _measure
+    from harness.timing import _measure, evictor
     from harness.prepare import prepare_group
     from harness.shared_pages import Arena, placed_in
     from harness.worker import WorkerPlan, context, start_worker
@@ -59,12 +57,7 @@ def _serve(version_dir: str, threads: int, plan: dict[str, Any], conn: Any) -> N
                        inspect_vectorisation=False, flush_bytes=plan["flush_bytes"])
     info = start_worker(wplan)
     conn.send(("hello", {**info, "kernels_dir": here, "kernels_source_hash": SOURCE_HASH}))
-    flush = None
-    if timing.cold_cache:
-        from kernels.parallel import evict_caches
-
-        flush_buf = np.zeros(plan["flush_bytes"] // 8, dtype=np.int64)
-        flush = lambda: evict_caches(flush_buf)  # noqa: E731
+    flush = evictor(plan["flush_bytes"]) if timing.cold_cache else None
     prepared = group = arena = None
     shared = False
     last_round = None

@@ -95,18 +95,14 @@ def compute_ceilings(threads: int, dtypes: list[str]) -> dict[str, dict[str, Any
 
 
 def _run(plan: WorkerPlan, queue: Any, stop: Any, rounds_done: Any) -> None:
-    import numpy as np
-
     from harness.roof import measure_curve
-    from harness.timing import Interrupted
-    from kernels.parallel import evict_caches
+    from harness.timing import Interrupted, evictor
 
     queue.put(("worker", start_worker(plan)))
     if plan.timing.roof:
         queue.put(("roof", measure_curve(plan.threads, plan.timing.roof_max_bytes).as_dict()))
         queue.put(("compute_roof", compute_ceilings(plan.threads, sorted({g.dtype for g in plan.groups}))))
-    flush_buf = np.ones(plan.flush_bytes // 8, dtype=np.int64)  # also evicts after a same-buffers sibling
-    evict = lambda: evict_caches(flush_buf)  # noqa: E731
+    evict = evictor(plan.flush_bytes)  # every sample in cold mode; else only a sibling no order could avoid
     flush = evict if plan.timing.cold_cache else None
 
     seen_reports: dict[str, dict[str, Any]] = {}

@@ -175,3 +175,12 @@ def test_spread_is_a_permutation_that_avoids_every_avoidable_neighbour(keys, las
     # no key on more than ceil(n/2) items, and the key of ``last`` on at most floor(n/2).
     if all(k <= (n + 1) // 2 for k in counts.values()) and counts.get(last, 0) <= n // 2:
         assert adjacent == 0
+
+
+def test_the_evictor_sweeps_written_pages_and_allocates_on_first_use() -> None:
+    """Never-written pages all map one shared zero page: a read sweep over them evicts nothing.
+    The evictor's buffer is written, so its sum counts one 1 per cache line swept."""
+    from harness.timing import evictor
+
+    evict = evictor(1 << 20)
+    assert evict() == (1 << 20) // 64
