@@ -194,6 +194,11 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
     for layout in layouts:
         for size in sizes:
             parse_layout(layout).check(size)
+    for name in names:
+        for size in sizes:
+            reason = registry[name].unsupported(size)
+            if reason:
+                raise SuiteError(f"grid '{size}': {reason}; change grid.sizes or leave the kernel out of kernels.select")
     tsec = data.get("threads", {})
     counts = tsec.get("counts", [1, 2])
     if isinstance(counts, str):

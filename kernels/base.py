@@ -81,6 +81,27 @@ class Kernel(ABC):
     #: Value of padding elements per input field (default 0), e.g. 1 on a main diagonal so
     #: padded columns stay solvable.
     padding_value: dict[str, float] = {}
+    #: Smallest var extent the kernel accepts, and the step between accepted var extents (e.g. 2
+    #: for a kernel that couples variables in pairs).
+    min_var: int = 1
+    var_step: int = 1
+
+    def unsupported(self, extents: Extents) -> str | None:
+        """Why this kernel cannot run on a grid of these extents, in one phrase (None: it can)."""
+        v = extents.var
+        if v < self.min_var or (v - self.min_var) % self.var_step:
+            valid = ", ".join(str(self.min_var + i * self.var_step) for i in range(3))
+            return f"kernel '{self.name}' {self.var_rule}: var must be one of {valid}, ...; got var={v}"
+        return None
+
+    #: Why the var rule exists, for error messages (e.g. "couples variables in pairs").
+    var_rule: str = "takes any var extent"
+
+    def fitted(self, extents: Extents) -> Extents:
+        """The smallest grid at or above ``extents`` in var that this kernel accepts."""
+        v = max(extents.var, self.min_var)
+        v += -(v - self.min_var) % self.var_step
+        return extents.replace(var=v)
 
     # -- inputs ---------------------------------------------------------------------------
     @abstractmethod

@@ -63,9 +63,9 @@ def test_checks_catch_a_broken_kernel() -> None:
 @settings(max_examples=25)
 @given(data=st.data(), name=st.sampled_from(sorted(KERNELS)))
 def test_random_layouts_match_reference(data: st.DataObject, name: str) -> None:
-    ext = Extents(*(data.draw(st.integers(1, 6)) for _ in range(4)))
-    layout = data.draw(layouts_for(ext))
     kernel = KERNELS[name]
+    ext = kernel.fitted(Extents(*(data.draw(st.integers(1, 6)) for _ in range(4))))
+    layout = data.draw(layouts_for(ext))
     problem = kernel.make_problem(layout, ext, "float64", seed=1)
     for schedule in kernel.schedules:
         result = kernel.validate(problem, schedule)

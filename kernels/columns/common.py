@@ -44,6 +44,18 @@ def column_at(col, inner):  # type: ignore[no-untyped-def]
     return np.uintp(o), np.uintp(col - o * inner)
 
 
+@inline
+def split_column(col, nb, nc, b_outside):  # type: ignore[no-untyped-def]
+    """``(ia, ib1, ib2, ic)`` of flat item ``col`` over (A, B, C) of the seven-axis views of
+    ``shared_view``, where B is B1 when ``b_outside`` else B2. With ``nc`` = nz, the last index is
+    a level instead (items over (A, B, z))."""
+    ia = col // (nb * nc)
+    rem = col - ia * nb * nc
+    ib = rem // nc
+    ib1 = ib if b_outside else 0
+    return ia, ib1, ib - ib1, rem - ib * nc
+
+
 def column_view(state: State) -> np.ndarray:
     """``(outer, z_padded, inner)`` view of a state's buffer (no copy)."""
     shape = state.data.shape

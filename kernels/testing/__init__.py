@@ -49,13 +49,18 @@ def _require(condition: bool, message: str) -> None:
 
 
 def check_declarations(kernel: Kernel) -> None:
-    """Name, family, summary, two or more distinct schedules, tolerances, a positive flop count."""
+    """Name, family, summary, two or more distinct schedules, tolerances, a positive flop count,
+    and a var rule that accepts the grids it fits."""
     _require(isinstance(kernel, Kernel), f"{kernel!r} is not a kernels.base.Kernel")
     names = [s.name for s in kernel.schedules]
     _require(len(names) >= 2 and len(set(names)) == len(names), f"{kernel.name}: needs two or more distinct schedules, has {names}")
     _require(bool(kernel.summary and kernel.family), f"{kernel.name}: summary and family must be set")
     _require(kernel.tolerance("float32") > kernel.tolerance("float64") > 0, f"{kernel.name}: tolerances must be positive, float32's larger")
-    _require(kernel.flops(GRID) > 0, f"{kernel.name}: flops must be positive")
+    _require(kernel.flops(kernel.fitted(GRID)) > 0, f"{kernel.name}: flops must be positive")
+    for var in range(1, 9):
+        fitted = kernel.fitted(GRID.replace(var=var))
+        _require(fitted.var >= var and kernel.unsupported(fitted) is None,
+                 f"{kernel.name}: fitted() gives var={fitted.var} for var={var}, which unsupported() refuses")
 
 
 def check_traffic_model(kernel: Kernel) -> None:
@@ -64,37 +69,43 @@ def check_traffic_model(kernel: Kernel) -> None:
     From memory: J. D. McCalpin's STREAM benchmark counts each array once per kernel pass and no
     write-allocate traffic (its published counting rules).
     """
+    grid = kernel.fitted(GRID)
     for dtype in DTYPES:
-        logical = kernel.logical_inputs(GRID, np.dtype(dtype), 0)
-        expected = (sum(v.size for v in logical.values()) + GRID.points) * np.dtype(dtype).itemsize
-        got = kernel.traffic_bytes(GRID, dtype)
+        logical = kernel.logical_inputs(grid, np.dtype(dtype), 0)
+        expected = (sum(v.size for v in logical.values()) + grid.points) * np.dtype(dtype).itemsize
+        got = kernel.traffic_bytes(grid, dtype)
         _require(got == expected, f"{kernel.name}: traffic_bytes is {got} in {dtype}, the counting rule gives {expected}")
 
 
 def check_inputs_deterministic(kernel: Kernel) -> None:
     """The same seed gives the same inputs; another seed different ones."""
-    a, b, c = (kernel.logical_inputs(GRID, np.dtype("float64"), s) for s in (7, 7, 8))
+    a, b, c = (kernel.logical_inputs(kernel.fitted(GRID), np.dtype("float64"), s) for s in (7, 7, 8))
     _require(all(np.array_equal(a[k], b[k]) for k in a), f"{kernel.name}: inputs differ between two calls with seed 7")
     _require(any(not np.array_equal(a[k], c[k]) for k in a), f"{kernel.name}: seeds 7 and 8 give the same inputs")
 
 
 def check_input_shapes_and_footprint(kernel: Kernel) -> None:
     """Declared input shapes match the inputs made; the footprint model matches allocation."""
-    logical = kernel.logical_inputs(GRID, np.dtype("float64"), 0)
-    declared = kernel.input_shapes(GRID)
+    grid = kernel.fitted(GRID)
+    logical = kernel.logical_inputs(grid, np.dtype("float64"), 0)
+    declared = kernel.input_shapes(grid)
     _require(set(declared) == set(logical), f"{kernel.name}: declares inputs {sorted(declared)}, makes {sorted(logical)}")
     for key, shape in declared.items():
         expected = shape.shape if isinstance(shape, Extents) else (shape,)
         _require(logical[key].shape == expected, f"{kernel.name}: input '{key}' has shape {logical[key].shape}, declared {expected}")
     for spec in ("var.z.y.x", "var.z+1.y.x+8", "y/2.x/3.var.z.y%2.x%3"):
-        problem = kernel.make_problem(spec, GRID)
-        model, real = kernel.footprint(spec, GRID, "float64"), problem.nbytes()
+        problem = kernel.make_problem(spec, grid)
+        model, real = kernel.footprint(spec, grid, "float64"), problem.nbytes()
         _require(model == real, f"{kernel.name}: footprint model {model} B, allocated {real} B in {spec}")
 
 
 def check_layouts(kernel: Kernel, layouts: Sequence[str] = LAYOUTS, dtypes: Sequence[str] = DTYPES,
                   extents: Extents = GRID, builds: Sequence[str] = ("parallel", "serial")) -> None:
-    """Every layout, schedule and build (parallel, serial) matches the reference; the empty twin runs."""
+    """Every layout, schedule and build (parallel, serial) matches the reference; the empty twin runs.
+
+    The grid is ``extents`` with var raised to the kernel's smallest accepted value at or above it.
+    """
+    extents = kernel.fitted(extents)
     failures = []
     for dtype in dtypes:
         for spec in layouts:

@@ -1,0 +1,1 @@
+"""Pointwise kernels: work at one grid point that reads many variables (column physics)."""
