@@ -19,7 +19,7 @@ from kernels.families import TILING_ORDER, TILING_SIZES, format_tile_sizes, padd
 from kernels.layout import Layout
 from kernels.notation import parse_layout
 
-BUILTIN_SUITES = ("default", "smoke")
+BUILTIN_SUITES = ("default", "smoke", "dycore")
 THREADING_LAYERS = ("default", "omp", "tbb", "workqueue")
 
 

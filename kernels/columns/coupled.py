@@ -168,21 +168,22 @@ def banded_reference(blocks: dict[str, np.ndarray]) -> np.ndarray:
 
     v = {k: np.asarray(a, dtype=np.float64) for k, a in blocks.items()}
     nvar, nz, ny, nx = v["d"].shape
-    out = np.empty((nvar, nz, ny, nx))
+    npair = nvar // 2
+    # (pair, y, x, 2 nz): unknown 2k+r of each system, and its row of each block entry
+    interleave = lambda f: f.reshape(npair, 2, nz, ny, nx).transpose(0, 3, 4, 2, 1).reshape(npair, ny, nx, 2 * nz)  # noqa: E731
     rows = np.arange(2 * nz)
     level, r = rows // 2, rows % 2
-    for m in range(nvar // 2):
-        for j in range(ny):
-            for i in range(nx):
-                band = np.zeros((7, 2 * nz))
-                for name, shift in (("a", -1), ("b", 0), ("c", 1)):
-                    for n in (0, 1):
-                        col = 2 * (level + shift) + n
-                        ok = (col >= 0) & (col < 2 * nz)
-                        band[3 + rows[ok] - col[ok], col[ok]] = v[f"{name}{n}"][2 * m + r[ok], level[ok], j, i]
-                rhs = v["d"][2 * m + r, level, j, i]
-                out[2 * m + r, level, j, i] = solve_banded((3, 3), band, rhs)
-    return out
+    band = np.zeros((npair, ny, nx, 7, 2 * nz))
+    for name, shift in (("a", -1), ("b", 0), ("c", 1)):
+        for n in (0, 1):
+            col = 2 * (level + shift) + n
+            ok = (col >= 0) & (col < 2 * nz)
+            band[..., 3 + rows[ok] - col[ok], col[ok]] = interleave(v[f"{name}{n}"])[..., rows[ok]]
+    rhs = interleave(v["d"])
+    solved = np.empty_like(rhs)
+    for idx in np.ndindex(npair, ny, nx):
+        solved[idx] = solve_banded((3, 3), band[idx], rhs[idx])
+    return solved.reshape(npair, ny, nx, nz, 2).transpose(0, 4, 3, 1, 2).reshape(nvar, nz, ny, nx)
 
 
 class Coupled(Kernel):

@@ -14,7 +14,7 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Kernel, Problem, Schedule
-from kernels.columns.common import shared_view, split_column, stretched_levels
+from kernels.columns.common import STRIP_WIDTH, shared_view, split_column, stretched_levels
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
 from kernels.parallel import chunk, thread_count
@@ -23,8 +23,9 @@ from kernels.registry import register
 COLUMN = Schedule("column", "one column at a time, z innermost, every variable in turn; threads split the columns")
 LEVEL = Schedule(
     "level",
-    "level by level over a row of columns along the contiguous axis (var and C together when var is inside z); "
-    "threads split the rows of columns",
+    "level by level over a strip of columns along the contiguous non-z axis (every variable of the strip when var "
+    "is inside z); threads split the strips",
+    (("width", STRIP_WIDTH),),
 )
 
 
@@ -58,43 +59,50 @@ def by_column(q, w, r, out, nz, nvar, nthreads):  # type: ignore[no-untyped-def]
 
 
 def by_level(q, w, r, out, nz, nvar, flux):  # type: ignore[no-untyped-def]
-    """Rows of (V2, C) elements level by level; flux is per-thread scratch (threads, V2 x C)
-    holding the flux through the bottom interface of the current level."""
+    """Strips of (V2, C) elements level by level: ``flux.shape[2]`` adjacent columns along C, all
+    of V2 when var is inside z. flux is per-thread scratch (threads, V2, width) holding the flux
+    through the bottom interface of the current level. Strips, not whole rows, are the work
+    items, so layouts with nothing outside z still give every thread work."""
     var_outside = q.shape[1] > 1
     b_outside = q.shape[2] > 1
     nb, nc = q.shape[2] * q.shape[4], q.shape[6]
     nv1 = nvar if var_outside else 1
     nv2 = nvar // nv1
-    nitems = q.shape[0] * nv1 * nb
+    width = flux.shape[2]
+    nstrip = (nc + width - 1) // width
+    nitems = q.shape[0] * nv1 * nb * nstrip
     nthreads = flux.shape[0]
     zero = r[0] - r[0]
     for t in prange(nthreads):
         lo, hi = chunk(nitems, nthreads, t)
         f = flux[t]
         for item in range(lo, hi):
-            ia = item // (nv1 * nb)
-            rem = item - ia * nv1 * nb
-            v1 = rem // nb
-            ib = rem - v1 * nb
+            ia = item // (nv1 * nb * nstrip)
+            rem = item - ia * nv1 * nb * nstrip
+            v1 = rem // (nb * nstrip)
+            rem = rem - v1 * nb * nstrip
+            ib = rem // nstrip
+            s0 = (rem - ib * nstrip) * width
+            n = min(width, nc - s0)
             ib1 = ib if b_outside else 0
             ib2 = ib - ib1
-            for s in range(nv2 * nc):
-                f[s] = zero
+            for v2 in range(nv2):
+                for s in range(n):
+                    f[v2, s] = zero
             for k in range(nz - 1):
-                wk, rk = w[ia, 0, ib1, k + 1, ib2, 0], r[k]
+                wk, rk = w[ia, 0, ib1, k + 1, ib2, 0, s0 : s0 + n], r[k]
                 for v2 in range(nv2):
-                    qk, qu, ok = q[ia, v1, ib1, k, ib2, v2], q[ia, v1, ib1, k + 1, ib2, v2], out[ia, v1, ib1, k, ib2, v2]
-                    fv = f[v2 * nc : (v2 + 1) * nc]
-                    for ic in range(nc):
-                        fhi = upwind(wk[ic], qk[ic], qu[ic], zero)
-                        ok[ic] = qk[ic] - rk * (fhi - fv[ic])
-                        fv[ic] = fhi
+                    qk, qu = q[ia, v1, ib1, k, ib2, v2, s0 : s0 + n], q[ia, v1, ib1, k + 1, ib2, v2, s0 : s0 + n]
+                    ok, fv = out[ia, v1, ib1, k, ib2, v2, s0 : s0 + n], f[v2]
+                    for s in range(n):
+                        fhi = upwind(wk[s], qk[s], qu[s], zero)
+                        ok[s] = qk[s] - rk * (fhi - fv[s])
+                        fv[s] = fhi
             top, rt = nz - 1, r[nz - 1]
             for v2 in range(nv2):
-                qk, ok = q[ia, v1, ib1, top, ib2, v2], out[ia, v1, ib1, top, ib2, v2]
-                fv = f[v2 * nc : (v2 + 1) * nc]
-                for ic in range(nc):
-                    ok[ic] = qk[ic] - rt * (zero - fv[ic])
+                qk, ok, fv = q[ia, v1, ib1, top, ib2, v2, s0 : s0 + n], out[ia, v1, ib1, top, ib2, v2, s0 : s0 + n], f[v2]
+                for s in range(n):
+                    ok[s] = qk[s] - rt * (zero - fv[s])
 
 
 BY_COLUMN = build(by_column)
@@ -137,7 +145,8 @@ class VerticalAdvection(Kernel):
         if schedule.name == "column":
             return BY_COLUMN, (q, w, r, out, ext.z, ext.var, thread_count())
         nv2 = 1 if q.shape[1] > 1 else ext.var
-        return BY_LEVEL, (q, w, r, out, ext.z, ext.var, np.zeros((thread_count(), nv2 * q.shape[6]), problem.dtype))
+        width = schedule.param("width", STRIP_WIDTH)
+        return BY_LEVEL, (q, w, r, out, ext.z, ext.var, np.zeros((thread_count(), nv2, width), problem.dtype))
 
     def flops(self, extents: Extents) -> int:
         # Each inner interface: max, min, two products, a sum (5); each level: difference,
@@ -150,8 +159,10 @@ class VerticalAdvection(Kernel):
         return 1e-14 if np.dtype(dtype) == np.float64 else 1e-6
 
     def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
-        """``level`` packs its loop along C, the storage extent inside var; ``column`` runs one recurrence."""
-        return 1 if schedule.name == "column" else int(shared_view(problem.output).shape[6])
+        """``level`` packs its loop along a strip of C, the storage extent inside var; ``column`` runs one recurrence."""
+        if schedule.name == "column":
+            return 1
+        return min(schedule.param("width", STRIP_WIDTH), int(shared_view(problem.output).shape[6]))
 
 
 register(VerticalAdvection())

@@ -5,7 +5,8 @@ condensate species in g/kg that only load the heat capacity. Vapour above satura
 (and cloud water below it evaporates, never more than there is) by one Newton step on
 ``qv - dq = qs(T + L dq / cp)``, with the Magnus form of the saturation vapour pressure (constants
 of Alduchov & Eliasson 1996, from memory) at the pressure of each level. Every point reads all
-variables and writes them all: 0-2 updated, the rest copied.
+variables and writes them all: 0-2 updated, the rest copied. The exponential and divisions make
+the per-point work heavy, so a schedule must pack points into vector lanes to keep up with memory.
 """
 
 from __future__ import annotations
@@ -31,6 +32,11 @@ FLOPS_PER_POINT = 29
 
 POINT = Schedule("point", "one point at a time, its variables read innermost; threads split rows of points")
 RUN = Schedule("run", "a row of points along the contiguous axis per pass, one pass per variable; threads split the rows")
+COLUMN = Schedule(
+    "column",
+    "a column's variables transposed into per-thread scratch, adjusted in unit-stride loops along z, copied back; "
+    "threads split the columns",
+)
 
 
 @inline
@@ -100,8 +106,49 @@ def by_run(q, out, p, nz, nvar, k, scratch):  # type: ignore[no-untyped-def]
                 o0[ic], o1[ic], o2[ic] = adjust(t0[ic], t1[ic], t2[ic], load[ic], pk, k)
 
 
+def by_column(q, out, p, nz, nvar, k, scratch):  # type: ignore[no-untyped-def]
+    """One column at a time: its variables copied into per-thread scratch (threads, var+1, nz)
+    in the order memory holds them (a local transpose), adjusted in unit-stride loops along z,
+    copied back. Row var of the scratch holds the loading."""
+    var_outside = q.shape[1] > 1
+    b_outside = q.shape[2] > 1
+    nb, nc = q.shape[2] * q.shape[4], q.shape[6]
+    ncol = q.shape[0] * nb * nc
+    nthreads = scratch.shape[0]
+    zero = k[9] - k[9]
+    for t in prange(nthreads):
+        lo, hi = chunk(ncol, nthreads, t)
+        s = scratch[t]
+        for col in range(lo, hi):
+            ia, ib1, ib2, ic = split_column(col, nb, nc, b_outside)
+            if var_outside:
+                for v in range(nvar):
+                    for kz in range(nz):
+                        s[v, kz] = q[ia, v, ib1, kz, ib2, 0, ic]
+            else:
+                for kz in range(nz):
+                    for v in range(nvar):
+                        s[v, kz] = q[ia, 0, ib1, kz, ib2, v, ic]
+            for kz in range(nz):
+                s[nvar, kz] = zero
+            for v in range(3, nvar):
+                for kz in range(nz):
+                    s[nvar, kz] += s[v, kz]
+            for kz in range(nz):
+                s[0, kz], s[1, kz], s[2, kz] = adjust(s[0, kz], s[1, kz], s[2, kz], s[nvar, kz], p[kz], k)
+            if var_outside:
+                for v in range(nvar):
+                    for kz in range(nz):
+                        out[ia, v, ib1, kz, ib2, 0, ic] = s[v, kz]
+            else:
+                for kz in range(nz):
+                    for v in range(nvar):
+                        out[ia, 0, ib1, kz, ib2, v, ic] = s[v, kz]
+
+
 BY_POINT = build(by_point)
 BY_RUN = build(by_run)
+BY_COLUMN = build(by_column)
 
 
 def reference_adjust(q: np.ndarray, p: np.ndarray) -> np.ndarray:
@@ -124,7 +171,7 @@ class Saturation(Kernel):
     name = "saturation"
     family = "points"
     summary = "saturation adjustment at every point: reads all variables, updates temperature, vapour and cloud water"
-    schedules = (POINT, RUN)
+    schedules = (POINT, RUN, COLUMN)
     min_var = 3
     var_rule = "reads temperature, vapour and cloud water as variables 0-2"
 
@@ -164,6 +211,8 @@ class Saturation(Kernel):
         p = problem.arrays["p"]
         if schedule.name == "point":
             return BY_POINT, (q, out, p, ext.z, ext.var, k, thread_count())
+        if schedule.name == "column":
+            return BY_COLUMN, (q, out, p, ext.z, ext.var, k, np.zeros((thread_count(), ext.var + 1, ext.z), problem.dtype))
         return BY_RUN, (q, out, p, ext.z, ext.var, k, np.zeros((thread_count(), q.shape[6]), problem.dtype))
 
     def flops(self, extents: Extents) -> int:
@@ -177,7 +226,10 @@ class Saturation(Kernel):
         return 1e-14 if np.dtype(dtype) == np.float64 else 2e-6
 
     def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
-        """``run`` packs along C, the storage extent inside var; ``point`` runs one point at a time."""
+        """``run`` packs along C, the storage extent inside var, ``column`` along z in scratch;
+        ``point`` runs one point at a time."""
+        if schedule.name == "column":
+            return problem.extents.z
         return int(shared_view(problem.output).shape[6]) if schedule.name == "run" else 1
 
 
