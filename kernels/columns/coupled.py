@@ -172,7 +172,7 @@ def banded_reference(blocks: dict[str, np.ndarray]) -> np.ndarray:
     # (pair, y, x, 2 nz): unknown 2k+r of each system, and its row of each block entry
     interleave = lambda f: f.reshape(npair, 2, nz, ny, nx).transpose(0, 3, 4, 2, 1).reshape(npair, ny, nx, 2 * nz)  # noqa: E731
     rows = np.arange(2 * nz)
-    level, r = rows // 2, rows % 2
+    level = rows // 2
     band = np.zeros((npair, ny, nx, 7, 2 * nz))
     for name, shift in (("a", -1), ("b", 0), ("c", 1)):
         for n in (0, 1):
