@@ -1,9 +1,11 @@
 """What is timed: case keys, groups of cases timed together, and the three kinds of case.
 
 A case is a *kernel* case (a registered kernel in one layout, schedule and build), a
-*conversion* (copying the state from one layout to another) or a *probe* (a STREAM triad sized
-like the group's buffers, the roof the group's figures are measured against). The kind follows
-from the ``kernel`` column, whose two special values the registry reserves.
+*stage* (one stage of a kernel that runs several back to back, alone on that kernel's buffers,
+timed in its rounds), a *conversion* (copying the state from one layout to another) or a *probe*
+(a STREAM triad sized like the group's buffers, the roof the group's figures are measured
+against). The kind follows from the ``kernel`` column: the registry reserves two special values,
+and a stage is ``KERNEL.PART`` (registered names never hold a dot).
 """
 
 from __future__ import annotations
@@ -25,17 +27,39 @@ ARROW = "->"  # joins the two layouts of a conversion: "FROM->TO"
 #: Joins a schedule to a tunable's value in a case's schedule name: ``strip@64`` is the strip
 #: schedule with width 64 (a suite's list of ``strip_width`` values).
 VARIANT = "@"
+#: Joins a kernel to the kernel one of its stages runs: ``step.varcoef`` (a stage case's kernel).
+STAGE = "."
+
+
+def stage_name(kernel: str, part: str) -> str:
+    """The kernel column of a stage case: the whole kernel's name, a dot, the stage's kernel."""
+    return f"{kernel}{STAGE}{part}"
+
+
+def part_of(kernel: str) -> str:
+    """The registered kernel whose byte and flop models a case has: itself, or a stage's kernel."""
+    return kernel.split(STAGE, 1)[-1]
+
+
+def whole_of(kernel: str) -> str:
+    """The kernel whose buffers a case works on: itself, or for a stage the kernel it belongs to."""
+    return kernel.split(STAGE, 1)[0]
 
 
 class CaseKind(str, Enum):
     KERNEL = "kernel"
+    STAGE = "stage"
     CONVERSION = "conversion"
     PROBE = "probe"
 
     @classmethod
     def of(cls, kernel: str) -> CaseKind:
         """The kind of a case from its kernel name."""
-        return cls.CONVERSION if kernel == CONVERT else cls.PROBE if kernel == PROBE else cls.KERNEL
+        if kernel == CONVERT:
+            return cls.CONVERSION
+        if kernel == PROBE:
+            return cls.PROBE
+        return cls.STAGE if STAGE in kernel else cls.KERNEL
 
 
 def is_plain(layout: str) -> bool:

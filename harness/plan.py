@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 
-from harness.cases import ARROW, CONVERT, VARIANT, CaseKey, CaseKind, Group
+from harness.cases import ARROW, CONVERT, VARIANT, CaseKey, CaseKind, Group, stage_name
 from harness.suite import Suite
 from kernels.grid import Extents
 from kernels.registry import all_kernels
@@ -41,6 +41,11 @@ def _groups_at(suite: Suite, threads: int) -> list[Group]:
                     for layout in suite.layouts
                     for s in schedules
                     for b in builds
+                ) + tuple(  # each stage alone, threaded build, in the same rounds as the whole
+                    CaseKey(stage_name(name, part), s, "parallel", layout, dtype, grid, threads)
+                    for layout in suite.layouts
+                    for s in schedules
+                    for part, _ in kernel.stages(s)
                 )
                 if cases:
                     groups.append(Group(name, grid, dtype, threads, cases))
@@ -85,7 +90,7 @@ def working_set_warnings(groups: list[Group], suite: Suite, l2_bytes: int | None
     for group in groups:
         for case in group.cases:
             key = (case.kernel, case.schedule, case.grid, case.dtype)
-            if group.kind != CaseKind.KERNEL or key in seen:
+            if case.kind != CaseKind.KERNEL or key in seen:
                 continue
             seen.add(key)
             kernel = get_kernel(case.kernel)

@@ -9,7 +9,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
-from harness.cases import ARROW, PROBE, CaseKey, CaseKind, Group, probe_schedule
+from harness.cases import ARROW, PROBE, VARIANT, CaseKey, CaseKind, Group, part_of, probe_schedule
 
 #: At most this many triad probes per group (distinct footprints beyond it share the nearest).
 MAX_PROBES = 3
@@ -73,18 +73,26 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
     problems: dict[str, Any] = {}
     restorers: dict[str, Any] = {}
     for case in group.cases:
+        stage = _stage_index(kernel, case)
+        models = get_kernel(part_of(case.kernel))
         rec = out.add(case, kernel.family, kernel.footprint(case.layout, extents, group.dtype),
-                      kernel.traffic_bytes(extents, group.dtype), kernel.flops(extents))
+                      models.traffic_bytes(extents, group.dtype), models.flops(extents))
         try:
             if case.layout not in problems:
                 problems[case.layout] = kernel.make_problem(case.layout, extents, group.dtype, ctx.seed,
                                                             first_touch if ctx.first_touch else None)
             problem = problems[case.layout]
             schedule = schedule_with_options(kernel, case.schedule, ctx.kernel_options)
-            impl, args = kernel.implementation(problem, schedule)
+            if stage is None:
+                impl, args = kernel.implementation(problem, schedule)
+            else:
+                impl, args = kernel.stage_implementation(problem, schedule, stage)
             dispatcher = getattr(impl, case.build)
             rec.update(out.compile(dispatcher, args))
-            check = kernel.validate(problem, schedule, case.build)
+            if stage is None:
+                check = kernel.validate(problem, schedule, case.build)
+            else:
+                check = kernel.validate_stage(problem, schedule, stage, case.build)
             rec.update(max_rel_error=check.max_rel_error, tolerance=check.tolerance)
             if not check.ok:
                 rec.update(status="failed", message=check.message)
@@ -104,6 +112,14 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
                     out.restorers[case.id] = restorers[case.layout]
         except Exception as exc:  # noqa: BLE001 - recorded as the case's error
             rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
+
+
+def _stage_index(kernel: Any, case: CaseKey) -> int | None:
+    """Which stage of its kernel a stage case runs (None for a whole kernel case)."""
+    if case.kind is not CaseKind.STAGE:
+        return None
+    names = [name for name, _ in kernel.stages(case.schedule.split(VARIANT)[0])]
+    return names.index(part_of(case.kernel))
 
 
 def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:

@@ -19,7 +19,7 @@ Definitions (also in the README):
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -169,6 +169,7 @@ class Ranking:
     options: RankOptions
     rounds: dict[tuple[Any, ...], Rounds]  # group key -> reporting rounds of each ranked layout
     repetitions: pd.DataFrame  # per group with several runs or repetitions: spread and agreement
+    stages: pd.DataFrame = field(default_factory=pd.DataFrame)  # whole kernels beside the sum of their stages
 
 
 def _probes_of(cases: pd.DataFrame, key: tuple[Any, ...]) -> pd.DataFrame:
@@ -180,6 +181,7 @@ def _probes_of(cases: pd.DataFrame, key: tuple[Any, ...]) -> pd.DataFrame:
 def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
     from harness.mix import kernel_mix
     from harness.scaling import scaling_and_flips
+    from harness.stages import stage_comparison
 
     cases = runs.cases
     kernels = cases[of_kind(cases, CaseKind.KERNEL)]
@@ -206,8 +208,10 @@ def rank_runs(runs: Runs, options: RankOptions) -> Ranking:
     scaling, flips = scaling_and_flips(table, rounds, options)
     failed = cases[(cases["status"] != "ok") & ~of_kind(cases, CaseKind.PROBE)]
     mix = kernel_mix(table, rounds, runs, options)
+    looks = max((runs.looks(m) for m in table["machine"].unique()), default=1)
+    stages = stage_comparison(cases, runs.samples, table, options.alpha / looks, options.floor, options.confidence)
     return Ranking(table, scaling, flips, mix, _machine_diffs(table), failed, runs, options, rounds,
-                   repetition_agreement(table, rounds))
+                   repetition_agreement(table, rounds), stages)
 
 
 def repetition_agreement(table: pd.DataFrame, rounds: dict[tuple[Any, ...], Rounds]) -> pd.DataFrame:

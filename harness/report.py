@@ -13,6 +13,7 @@ from harness.intervals import Interval
 from harness.machine import numa_note
 from harness.metrics import OVERHEAD_MULTIPLE, SCHEDULE_LIMITED_PCT
 from harness.rank import Ranking
+from harness.stages import stage_rows_for_export, stage_section
 from harness.report_parts import (failed_section, fmt_interval, fmt_number, machines_section, mix_section,
                                   repetition_section, scaling_section)
 from harness.store import RunMetadata, vector_flag
@@ -217,6 +218,7 @@ def render_markdown(r: Ranking, title: str = "Layout ranking") -> str:
         out += ["Flags: " + " ".join(notes), ""]
     out += repetition_section(r)
     out += scaling_section(r)
+    out += stage_section(r.stages, r.options.alpha, r.options.floor)
     out += mix_section(r)
     out += machines_section(r)
     if not r.failed.empty:
@@ -252,5 +254,6 @@ def render(r: Ranking, fmt: str) -> str:
     if fmt == "csv":
         return frame.to_csv(index=False)
     if fmt == "json":
-        return json.dumps({"ranked": json.loads(frame.to_json(orient="records")), "mix": r.mix, "flips": r.flips}, indent=2, default=str) + "\n"
+        return json.dumps({"ranked": json.loads(frame.to_json(orient="records")), "mix": r.mix, "flips": r.flips,
+                           "stages": stage_rows_for_export(r.stages)}, indent=2, default=str) + "\n"
     raise ValueError(f"unknown format {fmt}")

@@ -12,7 +12,7 @@ from __future__ import annotations
 import re
 from dataclasses import replace
 
-from harness.cases import CaseKind, Group
+from harness.cases import CaseKind, Group, part_of
 from harness.suite import Suite
 from kernels.errors import StridewiseError
 from kernels.grid import Extents
@@ -40,7 +40,7 @@ def expected_seconds(group: Group, suite: Suite) -> float:
     traffic = 0.0
     for case in group.cases:
         if group.kind is CaseKind.KERNEL:
-            traffic += get_kernel(case.kernel).traffic_bytes(extents, case.dtype)
+            traffic += get_kernel(part_of(case.kernel)).traffic_bytes(extents, case.dtype)
         else:
             traffic += 2.0 * extents.points * (4 if case.dtype == "float32" else 8)
     return len(group.cases) * SECONDS_PER_CASE + rounds * traffic / (BANDWIDTH_PER_THREAD * group.threads)

@@ -15,7 +15,7 @@ import traceback
 from dataclasses import dataclass
 from typing import Any
 
-from harness.cases import CaseKind, Group
+from harness.cases import CaseKind, Group, whole_of
 from harness.prepare import Context, prepare_group
 from harness.sampling import Timing
 
@@ -121,9 +121,9 @@ def _run(plan: WorkerPlan, queue: Any, stop: Any, rounds_done: Any) -> None:
 
 def shared_buffers(records: dict[str, dict[str, Any]], calls: dict[str, Any]) -> dict[str, str]:
     """Which buffers each timed kernel case works on: the cases of one layout share one problem
-    (every schedule and build); conversions and probes have buffers of their own."""
-    return {cid: f"{r['kernel']}|{r['layout']}" for cid, r in records.items()
-            if cid in calls and CaseKind.of(r["kernel"]) is CaseKind.KERNEL}
+    (every schedule, build and stage); conversions and probes have buffers of their own."""
+    return {cid: f"{whole_of(r['kernel'])}|{r['layout']}" for cid, r in records.items()
+            if cid in calls and CaseKind.of(r["kernel"]) in (CaseKind.KERNEL, CaseKind.STAGE)}
 
 
 def context(plan: WorkerPlan, seen_reports: dict[str, dict[str, Any]], restore_inputs: bool = False) -> Context:

@@ -44,12 +44,13 @@ class Problem:
     logical: dict[str, np.ndarray] = field(repr=False)
     #: The reference output, computed on first validation and kept (the logical inputs never change).
     reference_output: np.ndarray | None = field(default=None, repr=False)
+    #: States a kernel passes between its stages (``Kernel.workspace``), full extents, same layout.
+    workspace: dict[str, State] = field(default_factory=dict, repr=False)
 
     def nbytes(self) -> int:
-        """Resident bytes of every buffer of this problem (padding included)."""
-        return sum(s.data.nbytes for s in self.fields.values()) + self.output.data.nbytes + sum(
-            a.nbytes for a in self.arrays.values()
-        )
+        """Resident bytes of every buffer of this problem (padding and workspace included)."""
+        states = [*self.fields.values(), self.output, *self.workspace.values()]
+        return sum(s.data.nbytes for s in states) + sum(a.nbytes for a in self.arrays.values())
 
 
 @dataclass(frozen=True)
@@ -87,6 +88,9 @@ class Kernel(ABC):
     #: for a kernel that couples variables in pairs).
     min_var: int = 1
     var_step: int = 1
+    #: Names of full-size states the kernel writes and reads between its stages (neither inputs
+    #: nor output, so outside the traffic model); allocated with each problem.
+    workspace: tuple[str, ...] = ()
 
     def unsupported(self, extents: Extents) -> str | None:
         """Why this kernel cannot run on a grid of these extents, in one phrase (None: it can)."""
@@ -137,12 +141,13 @@ class Kernel(ABC):
             else:
                 arrays[key] = np.ascontiguousarray(values)
         output = State.zeros(layout, extents, dt, toucher)
-        return Problem(self.name, layout, extents, dt, seed, fields, arrays, output, logical)
+        workspace = {name: State.zeros(layout, extents, dt, toucher) for name in self.workspace}
+        return Problem(self.name, layout, extents, dt, seed, fields, arrays, output, logical, workspace=workspace)
 
     def footprint(self, layout: Layout | str, extents: Extents, dtype: Any) -> int:
         """Resident bytes of one problem (inputs and output, padding included), without allocating it."""
         layout, dt = as_layout(layout), check_dtype(dtype)
-        total = layout.nbytes(extents, dt)  # the output
+        total = layout.nbytes(extents, dt) * (1 + len(self.workspace))  # the output and workspace
         for shape in self.input_shapes(extents).values():
             total += layout.nbytes(shape, dt) if isinstance(shape, Extents) else shape * dt.itemsize
         return total
@@ -188,6 +193,20 @@ class Kernel(ABC):
                 raise KernelError(
                     f"{self.name}: input '{key}' has shape {arr.shape} {arr.dtype}, expected ({out.extents.z},) {out.dtype.name}"
                 )
+
+    # -- stages (kernels that run other kernels back to back) ------------------------------
+    def stages(self, schedule: Schedule | str) -> tuple[tuple[str, str], ...]:
+        """(kernel, schedule) of each stage ``schedule`` runs back to back; () for one stage.
+        The harness times each stage alone in the same rounds as the whole."""
+        return ()
+
+    def stage_implementation(self, problem: Problem, schedule: Schedule, index: int) -> tuple[Compiled, tuple[Any, ...]]:
+        """Stage ``index`` of ``schedule`` alone, on the whole problem's buffers."""
+        raise NotImplementedError(f"kernel '{self.name}' has no stages")
+
+    def validate_stage(self, problem: Problem, schedule: Schedule, index: int, build: str = "parallel") -> Validation:
+        """Run the stages before ``index``, then check stage ``index`` against its own reference."""
+        raise NotImplementedError(f"kernel '{self.name}' has no stages")
 
     def schedule(self, schedule: Schedule | str) -> Schedule:
         if isinstance(schedule, Schedule):

@@ -109,6 +109,40 @@ def build(fn: Callable[..., Any], cache: bool = True, native: tuple[str, str] | 
     )
 
 
+@dataclass(frozen=True)
+class ChainCall:
+    """One build of every part of a chain, called in order; its arguments are one tuple per part."""
+
+    builds: tuple[Any, ...]
+
+    def __call__(self, *args: tuple[Any, ...]) -> None:
+        for fn, part_args in zip(self.builds, args):
+            fn(*part_args)
+
+
+@dataclass(frozen=True)
+class Chain:
+    """Implementations run back to back as one call (a whole step). Each part keeps its own
+    compiled builds; the chain's arguments are one tuple per part. Its empty build runs every
+    part's empty twin, so its overhead counts one fork/join per part, as the real call has."""
+
+    name: str
+    parts: tuple[Compiled, ...]
+    native: None = None
+
+    @property
+    def parallel(self) -> ChainCall:
+        return ChainCall(tuple(p.parallel for p in self.parts))
+
+    @property
+    def serial(self) -> ChainCall:
+        return ChainCall(tuple(p.serial for p in self.parts))
+
+    @property
+    def empty(self) -> ChainCall:
+        return ChainCall(tuple(p.empty for p in self.parts))
+
+
 inline = numba.njit(inline="always", **{k: v for k, v in JIT_OPTIONS.items() if k != "cache"})
 
 
@@ -123,7 +157,16 @@ class CompileRecord:
 
 
 def ensure_compiled(dispatcher: Any, args: tuple[Any, ...]) -> CompileRecord | None:
-    """Compile (or load from cache) ``dispatcher`` for ``args``; None if it was ready already."""
+    """Compile (or load from cache) ``dispatcher`` for ``args``; None if it was ready already.
+
+    A chain's parts are compiled in turn and reported as one record.
+    """
+    if isinstance(dispatcher, ChainCall):
+        done = [r for r in (ensure_compiled(fn, a) for fn, a in zip(dispatcher.builds, args)) if r is not None]
+        if not done:
+            return None
+        return CompileRecord(" + ".join(r.name for r in done), " + ".join(r.signature for r in done),
+                             sum(r.seconds for r in done), all(r.from_cache for r in done))
     sig = tuple(numba.typeof(a) for a in args)
     if sig in dispatcher.overloads:
         return None
@@ -140,7 +183,7 @@ _SCALAR = re.compile(r"^\s*v?(?:add|sub|mul|div|fmadd\d*|fnmadd\d*|fmsub\d*|fnms
 _WIDEST = re.compile(r"%([xyz])mm\d+")
 
 
-def vector_report(compiled: Compiled, args: tuple[Any, ...], parallel: bool = True) -> dict[str, Any]:
+def vector_report(compiled: Compiled | Chain, args: tuple[Any, ...], parallel: bool = True) -> dict[str, Any]:
     """Count packed (SIMD) and scalar floating-point arithmetic in the machine code for ``args``.
 
     numba cannot show the assembly of code loaded from its cache, so this compiles a private,
@@ -148,7 +191,16 @@ def vector_report(compiled: Compiled, args: tuple[Any, ...], parallel: bool = Tr
     (the threaded build's outlined loop body included); the widest register class used by packed
     code gives the vector width (xmm 128, ymm 256, zmm 512 bits). Reports are kept in the
     source-hash-keyed cache directory, so each specialisation is inspected once per source.
+    A chain's report sums its parts' counts and takes their widest registers.
     """
+    if isinstance(compiled, Chain):
+        parts = [vector_report(c, a, parallel) for c, a in zip(compiled.parts, args)]
+        return {
+            "packed_fp_ops": sum(r["packed_fp_ops"] for r in parts),
+            "scalar_fp_ops": sum(r["scalar_fp_ops"] for r in parts),
+            "vector_bits": max(r["vector_bits"] for r in parts),
+            "vectorised": any(r["vectorised"] for r in parts),
+        }
     key = f"{compiled.name}|{parallel}|{tuple(numba.typeof(a) for a in args)}|{numba_config.CPU_NAME or ''}"
     if compiled.native:  # the library may be rebuilt under the same name
         key += f"|{compiled.native[0]}|{os.stat(compiled.native[0]).st_mtime_ns}"

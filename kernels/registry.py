@@ -15,7 +15,7 @@ if TYPE_CHECKING:
     from kernels.base import Kernel
 
 _REGISTRY: dict[str, Kernel] = {}
-_FAMILY_PACKAGES = ("kernels.columns", "kernels.stencils", "kernels.points")
+_FAMILY_PACKAGES = ("kernels.columns", "kernels.stencils", "kernels.points", "kernels.steps")
 #: Names the harness gives its own kinds of case: layout conversions and STREAM-triad roof probes.
 CONVERSION_NAME = "convert"
 PROBE_NAME = "triad"

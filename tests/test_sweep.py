@@ -485,3 +485,24 @@ def test_bad_strip_width_lists_are_one_line_errors(tmp_path: Path, widths: str, 
     path = _suite(tmp_path, '["levelcoef"]', extra=f"[kernels.options.levelcoef]\nstrip_width = {widths}\n")
     with pytest.raises(SuiteError, match=message):
         load_suite(str(path))
+
+
+def test_a_whole_step_is_timed_with_its_stages_and_set_beside_them(tmp_path: Path) -> None:
+    """A kernel with stages: each stage is a case of its group (validated, timed in the same rounds),
+    left out of the ranking, and the report sets the whole beside the sum of its stages."""
+    path = tmp_path / "suite.toml"
+    text = SMALL_SUITE.format(kernels='["step"]', repeats=6).replace("var=2,", "var=3,")
+    path.write_text(text.replace('select = ["step"]', 'select = ["step"]\nschedules = ["rows"]'))
+    out = tmp_path / "run"
+    proc = _sweep(str(path), "--out", str(out))
+    assert proc.returncode == 0, proc.stderr
+    cases = RunStore(out).cases()
+    stages = cases[cases["kernel"].str.startswith("step.")]
+    assert len(stages) == 3 * 3 and (stages["status"] == "ok").all()  # 3 stages x 3 layouts
+    assert set(stages["kernel"]) == {"step.hyperdiffusion", "step.varcoef", "step.saturation"}
+    assert (stages["max_rel_error"] <= stages["tolerance"]).all()
+    rank = subprocess.run([sys.executable, "-m", "harness", "rank", str(out)], capture_output=True, text=True, cwd=ROOT)
+    assert rank.returncode == 0, rank.stderr
+    ranked = rank.stdout.split("## Whole steps beside their stages")
+    assert len(ranked) == 2 and "step." not in ranked[0]  # stages are never ranked as layouts
+    assert ranked[1].count("| step ") == 3  # one row per layout

@@ -101,7 +101,8 @@ def check_input_shapes_and_footprint(kernel: Kernel) -> None:
 
 def check_layouts(kernel: Kernel, layouts: Sequence[str] = LAYOUTS, dtypes: Sequence[str] = DTYPES,
                   extents: Extents = GRID, builds: Sequence[str] = ("parallel", "serial")) -> None:
-    """Every layout, schedule and build (parallel, serial) matches the reference; the empty twin runs.
+    """Every layout, schedule and build (parallel, serial) matches the reference, and so does each
+    stage of a kernel that runs stages (first build); the empty twin runs.
 
     The grid is ``extents`` with var raised to the kernel's smallest accepted value at or above it.
     """
@@ -115,6 +116,10 @@ def check_layouts(kernel: Kernel, layouts: Sequence[str] = LAYOUTS, dtypes: Sequ
                     result = kernel.validate(problem, schedule, build)
                     if not result.ok:
                         failures.append(f"{spec} {dtype} {schedule.name} {build}: {result.message}")
+                for index, (part, _) in enumerate(kernel.stages(schedule)):
+                    result = kernel.validate_stage(problem, schedule, index, builds[0])
+                    if not result.ok:
+                        failures.append(f"{spec} {dtype} {schedule.name} stage {index} ({part}): {result.message}")
                 kernel.bind(problem, schedule, "empty")()
     _require(not failures, f"{kernel.name}: {len(failures)} case(s) fail validation:\n" + "\n".join(failures))
 

@@ -1,0 +1,1 @@
+"""Whole steps: several kernels run back to back on one state, timed as one call."""
