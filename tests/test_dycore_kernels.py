@@ -51,7 +51,7 @@ def test_coupled_matches_a_dense_lapack_solve(dtype: str) -> None:
                 sol = np.linalg.solve(mat, rhs).reshape(ext.z, 2)
                 expected[2 * m, :, j, i], expected[2 * m + 1, :, j, i] = sol[:, 0], sol[:, 1]
     assert np.abs(kernel.reference(logical) - expected).max() <= 1e-13 * np.abs(expected).max()
-    for spec in LAYOUTS:
+    for spec in LAYOUTS if dtype == "float64" else LAYOUTS[:2]:  # float32 compiles cost CI time; the contract covers the rest
         problem = kernel.problem_from(spec, logical, dtype)
         for schedule in kernel.schedules:
             problem.output.data[...] = np.nan
