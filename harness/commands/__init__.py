@@ -10,12 +10,12 @@ import sys
 from collections.abc import Sequence
 
 from harness import __version__
-from harness.commands import array_script, baseline, gate, import_bench, layouts, merge, rank, roof, sweep, versus
+from harness.commands import array_script, baseline, gate, halos, import_bench, layouts, merge, rank, roof, sweep, versus
 from harness.commands.parser import EXIT_USAGE, Parser
 from kernels.errors import StridewiseError
 
 #: In the order ``stridewise --help`` lists them.
-COMMANDS = (layouts, sweep, roof, rank, merge, array_script, gate, versus, baseline, import_bench)
+COMMANDS = (layouts, sweep, roof, rank, merge, array_script, gate, versus, baseline, import_bench, halos)
 
 
 def build_parser() -> Parser:
