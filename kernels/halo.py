@@ -33,16 +33,21 @@ OPPOSITE = {"north": "south", "south": "north", "east": "west", "west": "east"}
 STEP = {"north": (1, 0), "south": (-1, 0), "east": (0, 1), "west": (0, -1)}
 
 
-def copy_runs(src, dst, src_start, dst_start, length, nthreads):  # type: ignore[no-untyped-def]
-    """``dst[dst_start[r] + e] = src[src_start[r] + e]`` for every run r and e < length[r]."""
-    nruns = length.shape[0]
+def copy_runs(src, dst, src_start, src_step, dst_start, dst_step, length, count, nthreads):  # type: ignore[no-untyped-def]
+    """Group g copies ``count[g]`` runs of ``length[g]`` elements, the k-th from
+    ``src_start[g] + k src_step[g]`` to ``dst_start[g] + k dst_step[g]``."""
+    ngroups = length.shape[0]
     for t in prange(nthreads):
-        lo, hi = chunk(nruns, nthreads, t)
-        for r in range(lo, hi):
-            s, d = np.uintp(src_start[r]), np.uintp(dst_start[r])
-            for e in range(length[r]):
-                u = np.uintp(e)  # unsigned: no negative-index wrap, so the copy packs
-                dst[d + u] = src[s + u]
+        lo, hi = chunk(ngroups, nthreads, t)
+        for g in range(lo, hi):
+            s, d, n = np.uintp(src_start[g]), np.uintp(dst_start[g]), length[g]
+            ss, ds = np.uintp(src_step[g]), np.uintp(dst_step[g])
+            for _ in range(count[g]):
+                for e in range(n):
+                    u = np.uintp(e)  # unsigned: no negative-index wrap, so the copy packs
+                    dst[d + u] = src[s + u]
+                s += ss
+                d += ds
 
 
 COPY_RUNS = build(copy_runs)
@@ -50,19 +55,30 @@ COPY_RUNS = build(copy_runs)
 
 @dataclass(frozen=True)
 class Runs:
-    """Contiguous copies: ``length[r]`` elements from ``src_start[r]`` to ``dst_start[r]``."""
+    """Contiguous copies in groups: group g is ``count[g]`` runs of ``length[g]`` elements, equally
+    spaced in source and destination (a face's rows, or its columns of a few elements), so the
+    copy reads a handful of numbers per group, not per run."""
 
     src_start: np.ndarray
+    src_step: np.ndarray
     dst_start: np.ndarray
+    dst_step: np.ndarray
     length: np.ndarray
+    runs_per_group: np.ndarray
 
     @property
     def count(self) -> int:
+        """Contiguous runs copied (the layout's figure), over all groups."""
+        return int(self.runs_per_group.sum())
+
+    @property
+    def groups(self) -> int:
         return int(self.length.size)
 
     def args(self, src: np.ndarray, dst: np.ndarray) -> tuple[Any, ...]:
         """Arguments of ``COPY_RUNS`` for these runs between two flat buffers."""
-        return (src, dst, self.src_start, self.dst_start, self.length, thread_count())
+        return (src, dst, self.src_start, self.src_step, self.dst_start, self.dst_step, self.length, self.runs_per_group,
+                thread_count())
 
 
 @dataclass(frozen=True)
@@ -109,11 +125,27 @@ def _offsets(layout: Layout, extents: Extents, dtype: Any, box: tuple[int, int, 
 
 
 def _runs(src: np.ndarray, dst: np.ndarray) -> Runs:
-    """Maximal runs where both ``src`` and ``dst`` step by one (pairs already in copy order)."""
+    """Maximal runs where both ``src`` and ``dst`` step by one (pairs already in copy order),
+    gathered into groups of equal length and equal spacing."""
     breaks = np.flatnonzero((np.diff(src) != 1) | (np.diff(dst) != 1)) + 1
     starts = np.concatenate(([0], breaks))
     lengths = np.diff(np.concatenate((starts, [src.size])))
-    return Runs(src[starts].astype(np.int64), dst[starts].astype(np.int64), lengths.astype(np.int64))
+    s0, d0 = src[starts].astype(np.int64), dst[starts].astype(np.int64)
+    groups: list[list[int]] = []  # [first run, src step, dst step, runs]
+    for r in range(len(starts)):
+        if groups:
+            g = groups[-1]
+            first = g[0]
+            if lengths[r] == lengths[first] and (g[3] == 1 or (s0[r] - s0[r - 1] == g[1] and d0[r] - d0[r - 1] == g[2])):
+                if g[3] == 1:
+                    g[1], g[2] = int(s0[r] - s0[first]), int(d0[r] - d0[first])
+                if g[1] > 0 and g[2] > 0:
+                    g[3] += 1
+                    continue
+        groups.append([r, 0, 0, 1])
+    first = np.array([g[0] for g in groups], dtype=np.int64)
+    as_i64 = lambda k: np.array([g[k] for g in groups], dtype=np.int64)  # noqa: E731
+    return Runs(s0[first], as_i64(1), d0[first], as_i64(2), lengths[first].astype(np.int64), as_i64(3))
 
 
 def halo_plan(layout: Layout | str, extents: Extents, dtype: Any, halo: int) -> HaloPlan:
