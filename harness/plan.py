@@ -81,7 +81,7 @@ def group_bytes(group: Group) -> int:
 
 def working_set_warnings(groups: list[Group], suite: Suite, l2_bytes: int | None) -> list[str]:
     """One line per (kernel, schedule, grid, dtype) whose per-thread working set exceeds L2."""
-    from harness.prepare import schedule_with_options
+    from harness.prepare import kernel_with_options, schedule_with_options
     from kernels.registry import get_kernel
 
     if not l2_bytes:
@@ -93,7 +93,7 @@ def working_set_warnings(groups: list[Group], suite: Suite, l2_bytes: int | None
             if case.kind != CaseKind.KERNEL or key in seen:
                 continue
             seen.add(key)
-            kernel = get_kernel(case.kernel)
+            kernel = kernel_with_options(get_kernel(case.kernel), options)
             schedule = schedule_with_options(kernel, case.schedule, options)
             need = kernel.thread_working_set(Extents.parse(case.grid), case.dtype, schedule)
             if need and need > l2_bytes:

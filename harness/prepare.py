@@ -69,12 +69,12 @@ def prepare_kernel_cases(group: Group, ctx: Context, out: Prepared) -> None:
     from kernels.registry import get_kernel
 
     extents = Extents.parse(group.grid)
-    kernel = get_kernel(group.kernel)
+    kernel = kernel_with_options(get_kernel(group.kernel), ctx.kernel_options)
     problems: dict[str, Any] = {}
     restorers: dict[str, Any] = {}
     for case in group.cases:
         stage = _stage_index(kernel, case)
-        models = get_kernel(part_of(case.kernel))
+        models = kernel if stage is None else get_kernel(part_of(case.kernel))  # a stage has its own kernel's models
         rec = out.add(case, kernel.family, kernel.footprint(case.layout, extents, group.dtype),
                       models.traffic_bytes(extents, group.dtype), models.flops(extents))
         try:
@@ -195,6 +195,16 @@ def prepare_group(group: Group, ctx: Context, probes: bool = True) -> Prepared:
     for preparer in (PREPARERS[group.kind],) + ((prepare_probes,) if probes else ()):
         preparer(group, ctx, out)
     return out
+
+
+#: ``kernels.options`` keys that configure the kernel itself rather than a schedule's parameters.
+KERNEL_OPTION_KEYS = ("halo",)
+
+
+def kernel_with_options(kernel: Any, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:
+    """The kernel configured by the suite's options for it (e.g. a limited-area halo width)."""
+    given = {k: v for k, v in options.get(kernel.name, ()) if k in KERNEL_OPTION_KEYS}
+    return kernel.with_options(**given) if given else kernel
 
 
 def schedule_with_options(kernel: Any, name: str, options: dict[str, tuple[tuple[str, int], ...]]) -> Any:

@@ -13,7 +13,7 @@ from typing import Any
 
 from harness.roof import MAX_FOOTPRINT, MIN_FOOTPRINT
 from harness.sampling import Timing
-from kernels.errors import StridewiseError
+from kernels.errors import KernelError, StridewiseError
 from kernels.grid import Extents, check_dtype
 from kernels.families import TILING_ORDER, TILING_SIZES, format_tile_sizes, paddings, parse_tile_sizes, permutations, tilings
 from kernels.layout import Layout
@@ -173,30 +173,44 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
     for kname, opts in _expect(ksec.get("options", {}), dict, "kernels.options").items():
         if kname not in names:
             raise SuiteError(f"kernels.options names kernel '{kname}', which the suite does not run; run: {', '.join(names)}")
-        _check_keys(_expect(opts, dict, f"kernels.options.{kname}"), {"strip_width"}, f"kernels.options.{kname}")
-        takes = sorted(n for n in names if any("width" in dict(sch.params) for sch in registry[n].schedules))
-        if "strip_width" in opts and kname not in takes:
-            raise SuiteError(f"kernels.options.{kname}.strip_width: kernel '{kname}' has no schedule with a strip width; "
-                             f"kernels of this suite that take one: {', '.join(takes) or 'none'}")
-        value = opts.get("strip_width", 128)
-        widths = value if isinstance(value, list) else [value]
-        for width in widths:
-            _expect(width, int, f"kernels.options.{kname}.strip_width")
-            if width <= 0:
-                raise SuiteError(f"kernels.options.{kname}.strip_width must be positive, got {width}")
-        if isinstance(value, list):
-            if not widths or len(set(widths)) != len(widths):
-                raise SuiteError(f"kernels.options.{kname}.strip_width: give distinct widths to try, got {value}")
-            tuning.append((kname, tuple(widths)))
-        else:
-            options.append((kname, (("width", value),)))
+        _check_keys(_expect(opts, dict, f"kernels.options.{kname}"), {"strip_width", "halo"}, f"kernels.options.{kname}")
+        params: list[tuple[str, int]] = []
+        if "halo" in opts:
+            try:
+                registry[kname].with_options(halo=opts["halo"])
+            except KernelError as exc:
+                raise SuiteError(f"kernels.options.{kname}.halo: {exc}") from None
+            params.append(("halo", opts["halo"]))
+        if "strip_width" in opts or not params:
+            takes = sorted(n for n in names if any("width" in dict(sch.params) for sch in registry[n].schedules))
+            if "strip_width" in opts and kname not in takes:
+                raise SuiteError(f"kernels.options.{kname}.strip_width: kernel '{kname}' has no schedule with a strip width; "
+                                 f"kernels of this suite that take one: {', '.join(takes) or 'none'}")
+            value = opts.get("strip_width", 128)
+            widths = value if isinstance(value, list) else [value]
+            for width in widths:
+                _expect(width, int, f"kernels.options.{kname}.strip_width")
+                if width <= 0:
+                    raise SuiteError(f"kernels.options.{kname}.strip_width must be positive, got {width}")
+            if isinstance(value, list):
+                if not widths or len(set(widths)) != len(widths):
+                    raise SuiteError(f"kernels.options.{kname}.strip_width: give distinct widths to try, got {value}")
+                tuning.append((kname, tuple(widths)))
+            else:
+                params.append(("width", value))
+        if params:
+            options.append((kname, tuple(params)))
     layouts = _layouts(data.get("layouts", {"specs": ["var.z.y.x"]}))
     for layout in layouts:
         for size in sizes:
             parse_layout(layout).check(size)
+    configured = dict(options)
     for name in names:
+        kernel = registry[name]
+        halo = dict(configured.get(name, ())).get("halo")
+        kernel = kernel.with_options(halo=halo) if halo is not None else kernel
         for size in sizes:
-            reason = registry[name].unsupported(size)
+            reason = kernel.unsupported(size)
             if reason:
                 raise SuiteError(f"grid '{size}': {reason}; change grid.sizes or leave the kernel out of kernels.select")
     tsec = data.get("threads", {})

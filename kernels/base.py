@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 
+from kernels.errors import KernelError
 from kernels.grid import Extents, check_dtype
 from kernels.jit import Compiled
 from kernels.layout import Layout
@@ -88,6 +89,9 @@ class Kernel(ABC):
     #: for a kernel that couples variables in pairs).
     min_var: int = 1
     var_step: int = 1
+    #: Smallest y and x extent the kernel accepts (a limited-area stencil needs its halo on both
+    #: sides of an interior).
+    min_horizontal: int = 1
     #: Names of full-size states the kernel writes and reads between its stages (neither inputs
     #: nor output, so outside the traffic model); allocated with each problem.
     workspace: tuple[str, ...] = ()
@@ -98,16 +102,26 @@ class Kernel(ABC):
         if v < self.min_var or (v - self.min_var) % self.var_step:
             valid = ", ".join(str(self.min_var + i * self.var_step) for i in range(3))
             return f"kernel '{self.name}' {self.var_rule}: var must be one of {valid}, ...; got var={v}"
+        if min(extents.y, extents.x) < self.min_horizontal:
+            return (f"kernel '{self.name}' needs y and x of at least {self.min_horizontal} (its halo on both sides of an "
+                    f"interior); got y={extents.y}, x={extents.x}")
         return None
 
     #: Why the var rule exists, for error messages (e.g. "couples variables in pairs").
     var_rule: str = "takes any var extent"
 
+    def with_options(self, **options: Any) -> Kernel:
+        """This kernel configured by a suite's ``kernels.options`` beyond schedule parameters
+        (e.g. a limited-area stencil's ``halo``); the default takes none."""
+        if options:
+            raise KernelError(f"kernel '{self.name}' takes no options {sorted(options)}")
+        return self
+
     def fitted(self, extents: Extents) -> Extents:
-        """The smallest grid at or above ``extents`` in var that this kernel accepts."""
+        """The smallest grid at or above ``extents`` (var, then y and x) that this kernel accepts."""
         v = max(extents.var, self.min_var)
         v += -(v - self.min_var) % self.var_step
-        return extents.replace(var=v)
+        return extents.replace(var=v, y=max(extents.y, self.min_horizontal), x=max(extents.x, self.min_horizontal))
 
     # -- inputs ---------------------------------------------------------------------------
     @abstractmethod
@@ -178,8 +192,6 @@ class Kernel(ABC):
 
     def check_problem(self, problem: Problem) -> None:
         """Refuse inputs of the wrong layout, extents or dtype before any compiled code sees them."""
-        from kernels.errors import KernelError
-
         out = problem.output
         for key, st in problem.fields.items():
             expected = out.extents.replace(var=st.extents.var) if st.extents.var == 1 else out.extents
@@ -214,8 +226,6 @@ class Kernel(ABC):
         for s in self.schedules:
             if s.name == schedule:
                 return s
-        from kernels.errors import KernelError
-
         names = ", ".join(s.name for s in self.schedules)
         raise KernelError(f"kernel '{self.name}' has no schedule '{schedule}'; its schedules: {names}")
 
@@ -228,8 +238,16 @@ class Kernel(ABC):
         """Compulsory memory traffic of one call: each array read or written counted once,
         logical elements only, no write-allocate (the STREAM counting convention). The default
         counts every declared input and the output; override it for a kernel that reads less."""
-        elements = extents.points + sum(s.points if isinstance(s, Extents) else s for s in self.input_shapes(extents).values())
+        mask = self.defined_output(extents)
+        written = extents.points if mask is None else int(np.broadcast_to(mask, extents.shape).sum())
+        elements = written + sum(s.points if isinstance(s, Extents) else s for s in self.input_shapes(extents).values())
         return elements * check_dtype(dtype).itemsize
+
+    def defined_output(self, extents: Extents) -> np.ndarray | None:
+        """Boolean mask, broadcastable to (var, z, y, x), of the output elements the kernel writes
+        (None: all). A limited-area stencil writes its interior only; validation and the traffic
+        model follow the mask."""
+        return None
 
     def thread_working_set(self, extents: Extents, dtype: Any, schedule: Schedule) -> int | None:
         """Bytes one thread keeps live while it works on one item of ``schedule`` (None: no model)."""
@@ -256,6 +274,10 @@ class Kernel(ABC):
         if problem.reference_output is None:
             problem.reference_output = self.reference(problem.logical)
         ref = problem.reference_output
+        mask = self.defined_output(problem.extents)
+        if mask is not None:  # compare the elements the kernel writes, and only those
+            mask = np.broadcast_to(mask, got.shape)
+            got, ref = got[mask], ref[mask]
         tol = self.tolerance(problem.dtype)
         if not np.all(np.isfinite(got)):
             bad = int(np.count_nonzero(~np.isfinite(got)))
