@@ -186,3 +186,42 @@ def test_a_suite_refuses_a_grid_a_kernel_cannot_take() -> None:
     with pytest.raises(SuiteError, match="saturation"):
         parse_suite({"grid": {"sizes": ["var=2,z=8,y=8,x=8"]}, "kernels": {"select": ["saturation"]}})
     parse_suite({"grid": {"sizes": ["var=4,z=8,y=8,x=8"]}, "kernels": {"select": ["coupled", "saturation"]}})
+
+
+@pytest.mark.parametrize("spec", ["var.z.y.x", "y.x.z.var", "y/4.x/8.var.z.y%4.x%8", "var.y.x.z"])
+def test_limited_area_stencils_are_exact_on_polynomials_that_do_not_wrap(spec: str) -> None:
+    """On q = j^2 + 3 i^2 the 5-point Laplacian is 2 + 6 = 8, and on q = j^4 the squared one is
+    24, at every interior point: the halo is read, never wrapped (a periodic seam would break both).
+
+    Source: second differences are exact on quadratics, and (delta^2)^2 j^4 = 24 (difference
+    calculus, any numerical-analysis text - from memory; the second case is checked by hand:
+    (j+1)^4 + (j-1)^4 - 2 j^4 = 12 j^2 + 2, whose second difference is 24).
+    """
+    ext = Extents(var=2, z=3, y=13, x=17)
+    j = np.arange(ext.y, dtype=float).reshape(1, 1, -1, 1)
+    i = np.arange(ext.x, dtype=float).reshape(1, 1, 1, -1)
+    for name, field, value, halo in (("lam_laplacian", j**2 + 3 * i**2, 8.0, 1), ("lam_hyperdiffusion", j**4 + 0 * i, 24.0, 3)):
+        kernel = get_kernel(name).with_options(halo=halo)
+        problem = kernel.problem_from(spec, {"q": np.broadcast_to(field, ext.shape)}, "float64")
+        mask = np.broadcast_to(kernel.defined_output(ext), ext.shape)
+        assert mask.sum() == ext.var * ext.z * (ext.y - 2 * halo) * (ext.x - 2 * halo)
+        for schedule in kernel.schedules:
+            problem.output.data[...] = -1.0
+            kernel.bind(problem, schedule)()
+            got = problem.output.to_logical()
+            np.testing.assert_array_equal(got[mask], value, err_msg=f"{name} {spec} {schedule.name}")
+            assert (got[~mask] == -1.0).all()  # the halo of the output is left alone
+
+
+def test_a_halo_option_configures_the_kernel_and_its_models() -> None:
+    """Interior written, everything read: the STREAM counting rule on a limited-area subdomain
+    (from memory: McCalpin's STREAM counts each array once per pass)."""
+    base = get_kernel("lam_hyperdiffusion")
+    ext = Extents(var=2, z=4, y=20, x=30)
+    wide = base.with_options(halo=3)
+    assert base.halo == 2 and wide.halo == 3 and wide.name == base.name
+    assert wide.traffic_bytes(ext, "float64") == (ext.points + 2 * 4 * 14 * 24) * 8
+    assert wide.flops(ext) == 16 * 2 * 4 * 14 * 24 and base.flops(ext) == 16 * 2 * 4 * 16 * 26
+    with pytest.raises(Exception, match="at least the stencil's radius 2"):
+        base.with_options(halo=1)
+    assert "needs y and x of at least 7" in wide.unsupported(Extents(var=1, z=1, y=6, x=30))
