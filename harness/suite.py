@@ -12,8 +12,9 @@ from pathlib import Path
 from typing import Any
 
 from harness.roof import MAX_FOOTPRINT, MIN_FOOTPRINT
+from harness.kernel_options import kernel_options
+from harness.suite_errors import SuiteError, check_keys as _check_keys, expect as _expect
 from harness.sampling import Timing
-from kernels.errors import KernelError, StridewiseError
 from kernels.grid import Extents, check_dtype
 from kernels.families import TILING_ORDER, TILING_SIZES, format_tile_sizes, paddings, parse_tile_sizes, permutations, tilings
 from kernels.layout import Layout
@@ -21,10 +22,6 @@ from kernels.notation import parse_layout
 
 BUILTIN_SUITES = ("default", "smoke", "dycore")
 THREADING_LAYERS = ("default", "omp", "tbb", "workqueue")
-
-
-class SuiteError(StridewiseError):
-    """A suite file or suite value is invalid."""
 
 
 @dataclass(frozen=True)
@@ -90,27 +87,6 @@ _SECTION_KEYS = {
 _FAMILY_KEYS = {"permutations": set(), "tilings": {"tiles", "order"}, "paddings": {"base", "pads", "token"}}
 
 
-def _unknown(key: str, valid: set[str], where: str) -> SuiteError:
-    close = difflib.get_close_matches(key, sorted(valid), n=1)
-    hint = f" (did you mean '{close[0]}'?)" if close else ""
-    return SuiteError(f"unknown key '{key}' in {where}{hint}; valid keys: {', '.join(sorted(valid))}")
-
-
-def _check_keys(table: dict[str, Any], valid: set[str], where: str) -> None:
-    for key in table:
-        if key not in valid:
-            raise _unknown(key, valid, where)
-
-
-def _expect(value: Any, kind: type | tuple[type, ...], where: str) -> Any:
-    if isinstance(value, bool) and kind in (int, float, (int, float)):
-        raise SuiteError(f"{where} must be a number, got {value!r}")
-    if not isinstance(value, kind):
-        names = kind.__name__ if isinstance(kind, type) else " or ".join(k.__name__ for k in kind)
-        raise SuiteError(f"{where} must be {names}, got {value!r}")
-    return value
-
-
 def _layouts(section: dict[str, Any]) -> tuple[str, ...]:
     out: list[Layout] = [parse_layout(_expect(s, str, "layouts.specs item")) for s in section.get("specs", [])]
     for i, fam in enumerate(section.get("families", [])):
@@ -169,37 +145,7 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
         for s in schedules:
             if s not in known:
                 raise SuiteError(f"unknown schedule '{s}' in kernels.schedules; schedules of the chosen kernels: {', '.join(sorted(known))}")
-    options, tuning = [], []
-    for kname, opts in _expect(ksec.get("options", {}), dict, "kernels.options").items():
-        if kname not in names:
-            raise SuiteError(f"kernels.options names kernel '{kname}', which the suite does not run; run: {', '.join(names)}")
-        _check_keys(_expect(opts, dict, f"kernels.options.{kname}"), {"strip_width", "halo"}, f"kernels.options.{kname}")
-        params: list[tuple[str, int]] = []
-        if "halo" in opts:
-            try:
-                registry[kname].with_options(halo=opts["halo"])
-            except KernelError as exc:
-                raise SuiteError(f"kernels.options.{kname}.halo: {exc}") from None
-            params.append(("halo", opts["halo"]))
-        if "strip_width" in opts or not params:
-            takes = sorted(n for n in names if any("width" in dict(sch.params) for sch in registry[n].schedules))
-            if "strip_width" in opts and kname not in takes:
-                raise SuiteError(f"kernels.options.{kname}.strip_width: kernel '{kname}' has no schedule with a strip width; "
-                                 f"kernels of this suite that take one: {', '.join(takes) or 'none'}")
-            value = opts.get("strip_width", 128)
-            widths = value if isinstance(value, list) else [value]
-            for width in widths:
-                _expect(width, int, f"kernels.options.{kname}.strip_width")
-                if width <= 0:
-                    raise SuiteError(f"kernels.options.{kname}.strip_width must be positive, got {width}")
-            if isinstance(value, list):
-                if not widths or len(set(widths)) != len(widths):
-                    raise SuiteError(f"kernels.options.{kname}.strip_width: give distinct widths to try, got {value}")
-                tuning.append((kname, tuple(widths)))
-            else:
-                params.append(("width", value))
-        if params:
-            options.append((kname, tuple(params)))
+    options, tuning = kernel_options(_expect(ksec.get("options", {}), dict, "kernels.options"), names, registry)
     layouts = _layouts(data.get("layouts", {"specs": ["var.z.y.x"]}))
     for layout in layouts:
         for size in sizes:

@@ -214,8 +214,10 @@ def test_limited_area_stencils_are_exact_on_polynomials_that_do_not_wrap(spec: s
 
 
 def test_a_halo_option_configures_the_kernel_and_its_models() -> None:
-    """Interior written, everything read: the STREAM counting rule on a limited-area subdomain
-    (from memory: McCalpin's STREAM counts each array once per pass)."""
+    """Interior written, everything read: the STREAM counting rule on a limited-area subdomain.
+
+    From memory: McCalpin's STREAM benchmark counts each array once per pass (its published rules).
+    """
     base = get_kernel("lam_hyperdiffusion")
     ext = Extents(var=2, z=4, y=20, x=30)
     wide = base.with_options(halo=3)
