@@ -19,7 +19,7 @@ def test_readme_suite_example_is_a_valid_suite() -> None:
     suite = parse_suite(tomllib.loads(block), "README")
     # 24 permutations (the two specs among them), two tilings, pads 1 and 8 (pad 0 is var.z.y.x again)
     assert len(suite.layouts) == 24 + 2 + 2
-    assert suite.kernel_options == (("varcoef", (("width", 64),)),)
+    assert suite.kernel_options == (("varcoef", (("width", 64),)), ("lam_hyperdiffusion", (("halo", 3),)))
     assert suite.conversions_auto == 2
 
 

@@ -237,3 +237,15 @@ def test_deep_columns_and_many_variables_meet_the_contract(name: str) -> None:
         for schedule in kernel.schedules:
             result = kernel.validate(problem, schedule)
             assert result.ok, result.message
+
+
+@pytest.mark.parametrize("name", ["hyperdiffusion", "laplacian"])
+def test_stencils_on_grids_narrower_than_their_halo(name: str) -> None:
+    """A tiled layout with x (or y) smaller than the stencil's halo: every point wraps onto
+    itself; found by the random-layout test (the band walk assumed x >= halo)."""
+    kernel = KERNELS[name]
+    for ext in (Extents(1, 1, 1, 1), Extents(2, 1, 5, 1), Extents(1, 2, 1, 3)):
+        problem = kernel.make_problem("y/1.x/1.var.z.y%1.x%1", ext, "float64", seed=1)
+        for schedule in kernel.schedules:
+            result = kernel.validate(problem, schedule)
+            assert result.ok, f"{ext} {schedule.name}: {result.message}"

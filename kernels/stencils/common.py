@@ -245,8 +245,12 @@ class Stencil(Kernel):
         raise NotImplementedError
 
     def _walks_bands(self, problem: Problem) -> bool:
+        """The band walk serves tiled layouts whose x extent holds the halo; its scratch rows wrap x
+        by copying ``halo`` elements from each end, which needs x >= halo (the row walk's tables
+        handle any extent)."""
         fields = problem.fields
-        return self.walk.native is None and self.companion is None and len(fields) == 1 and has_band_form(fields["q"])
+        return (self.walk.native is None and self.companion is None and len(fields) == 1 and has_band_form(fields["q"])
+                and min(problem.extents.x, problem.extents.y) >= self.halo)
 
     def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
         """The interior of a row: a full x row in the band walk's scratch, else the walked row
