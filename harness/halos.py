@@ -60,7 +60,8 @@ class RankExchange:
         from kernels.state import State
 
         e, h = options.interior, options.halo
-        self.expected = local_expected(options, dims, coords)
+        # the field as the state's dtype holds it: an exact copy must reproduce it bit for bit
+        self.expected = local_expected(options, dims, coords).astype(options.dtype).astype(np.float64)
         values = self.expected.copy()  # the halo starts as NaN, so a cell the exchange misses shows
         values[:, :, :h], values[:, :, -h:], values[:, :, :, :h], values[:, :, :, -h:] = np.nan, np.nan, np.nan, np.nan
         self.state = State.zeros(layout, Extents(e.var, e.z, e.y + 2 * h, e.x + 2 * h), options.dtype)

@@ -12,14 +12,14 @@ from kernels.testing import LAYOUTS
 
 
 @pytest.mark.parametrize("spec", LAYOUTS)
-@pytest.mark.parametrize("dims, halo", [((2, 2), 2), ((1, 3), 1)])
-def test_every_halo_face_equals_the_neighbours_interior(spec: str, dims: tuple[int, int], halo: int) -> None:
+@pytest.mark.parametrize("dims, halo, dtype", [((2, 2), 2, "float64"), ((1, 3), 1, "float64"), ((2, 1), 3, "float32")])
+def test_every_halo_face_equals_the_neighbours_interior(spec: str, dims: tuple[int, int], halo: int, dtype: str) -> None:
     """Reference: the doubly periodic global array cut with NumPy slicing (halo_reference); every
     rank's interior is untouched, its four faces of halo filled, its corners not exchanged."""
     rng = np.random.default_rng(1)
     ny, nx = 3 * halo + 1, 3 * halo + 2
-    glob = rng.standard_normal((3, 2, dims[0] * ny, dims[1] * nx))
-    got = exchange_in_process(glob, spec, dims, halo)
+    glob = rng.standard_normal((3, 2, dims[0] * ny, dims[1] * nx)).astype(dtype)
+    got = exchange_in_process(glob, spec, dims, halo, dtype)
     for (cy, cx), local in got.items():
         expected = halo_reference(glob, (cy * ny, cx * nx), (ny, nx), halo)
         known = ~np.isnan(expected)
@@ -81,6 +81,9 @@ def test_the_exchange_under_mpiexec_checks_times_and_writes_its_results(tmp_path
     assert set(figures.loc[figures["layout"] == "y.x.z.var", "pack_runs"]) == {2 + 2 + 6 + 6}  # a run per face row
     again = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
     assert again.returncode == 2 and again.stderr.count("\n") == 1 and "already holds a halo measurement" in again.stderr
+    single = subprocess.run([*cmd[:-2], "--dtype", "float32", "--format", "csv"], capture_output=True, text=True, timeout=300)
+    assert single.returncode == 0, single.stderr  # float32 faces checked bit for bit, then timed
+    assert single.stdout.startswith("part,layout,median_us") and single.stdout.count("\n") == 1 + 4 * 3
 
 
 def test_without_mpi_the_command_is_skipped_with_a_message() -> None:

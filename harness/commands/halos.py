@@ -82,6 +82,11 @@ def run_halos(args: argparse.Namespace) -> int:
     result = measure(MPI.COMM_WORLD, options)
     if result is None:
         return 0
+    failed = {layout: err for layout, err in result["errors"].items() if err != 0.0}
+    if len(failed) == len(options.layouts):
+        print("stridewise: error: no layout's exchange reproduced the neighbours' interiors, so nothing was timed; "
+              "largest differences: " + ", ".join(f"{l} {err:.3g}" for l, err in failed.items()), file=sys.stderr)
+        return 1
     rows = figures(result, options)
     text = render_markdown(rows, result, options) if args.format == "md" else render(rows, args.format)
     sys.stdout.write(text if text.endswith("\n") else text + "\n")
