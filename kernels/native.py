@@ -36,6 +36,11 @@ without a copy (``kernels.columns.common.column_view``), with 3-D a, b, c, d and
 
 Column ``col`` is ``(o, i) = (col / inner, col % inner)``; its level ``k`` sits at
 ``(o * zext + k) * inner + i``.
+
+Column solves with per-level coefficients (one matrix shared by every column, as ``levelcoef``)
+take the same signature, with ``a``, ``b`` and ``c`` the ``nz`` values of that matrix: a library
+may factorise it once per call into ``scratch`` (then ``2 nz`` elements) and substitute every
+column of its range.
 """
 
 from __future__ import annotations
@@ -85,8 +90,9 @@ def _native_walk(q, out, extra, counts, strides, wstrides, jmul, imul, dy, dx, w
 
 def _native_columns(a, b, c, d, x, nz, cyclic, scratch):  # type: ignore[no-untyped-def]
     """Column solves over (outer, z, inner) views; each thread hands its columns to the library:
-    one contiguous range (block), or runs of 64 columns dealt round-robin (cyclic)."""
-    outer, zext, inner = a.shape[0], a.shape[1], a.shape[2]
+    one contiguous range (block), or runs of 64 columns dealt round-robin (cyclic). The view's
+    extents come from d (a, b, c may be the nz values of a per-level matrix)."""
+    outer, zext, inner = d.shape[0], d.shape[1], d.shape[2]
     ncol = outer * inner
     nchunks = scratch.shape[0]
     wide = x.itemsize == 8

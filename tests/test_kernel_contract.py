@@ -180,20 +180,25 @@ def test_the_native_c_stencil_example_meets_the_contract(monkeypatch: pytest.Mon
     assert report["packed_fp_ops"] > 0  # the disassembled library function, not the numba wrapper
 
 
-def test_the_native_c_column_solve_example_meets_the_contract(monkeypatch: pytest.MonkeyPatch) -> None:
-    """docs/examples/native_varcoef.c (the column family's C signature), validated in every
-    contract layout, both dtypes, both schedules and builds; float64 output within rounding of the
-    numba varcoef's (the C code multiplies by 1/m in another order)."""
+@pytest.mark.parametrize("example, numba_name, numba_schedule, schedule", [
+    ("native_varcoef", "varcoef", "column", "block"),  # 3-D coefficients
+    ("native_levelcoef", "levelcoef", "column", "cyclic"),  # per-level coefficients, same signature
+])
+def test_the_native_c_column_solve_examples_meet_the_contract(monkeypatch: pytest.MonkeyPatch, example: str, numba_name: str,
+                                                              numba_schedule: str, schedule: str) -> None:
+    """docs/examples/native_varcoef.c and native_levelcoef.c (the column family's C signature),
+    validated in every contract layout, both dtypes, both schedules and builds; float64 output
+    within rounding of the numba solve's (the C code multiplies by 1/m in another order)."""
     from kernels.native import c_compiler
 
     if c_compiler() is None:
-        pytest.skip("no C compiler (looked for $CC, cc, gcc, clang): the native column-solve example cannot be built")
-    kernel = _load_example("native_varcoef", monkeypatch)
+        pytest.skip(f"no C compiler (looked for $CC, cc, gcc, clang): the {example} example cannot be built")
+    kernel = _load_example(example, monkeypatch)
     for check in CHECKS:
         check(kernel)
-    mine, theirs = kernel.make_problem("var.y.x.z", GRID), get_kernel("varcoef").make_problem("var.y.x.z", GRID)
-    kernel.bind(mine, "block")()
-    get_kernel("varcoef").bind(theirs, "column")()
+    mine, theirs = kernel.make_problem("var.y.x.z", GRID), get_kernel(numba_name).make_problem("var.y.x.z", GRID)
+    kernel.bind(mine, schedule)()
+    get_kernel(numba_name).bind(theirs, numba_schedule)()
     np.testing.assert_allclose(mine.output.to_logical(), theirs.output.to_logical(), rtol=1e-14, atol=0)
 
 
@@ -249,3 +254,4 @@ def test_stencils_on_grids_narrower_than_their_halo(name: str) -> None:
         for schedule in kernel.schedules:
             result = kernel.validate(problem, schedule)
             assert result.ok, f"{ext} {schedule.name}: {result.message}"
+
