@@ -41,6 +41,22 @@ Column solves with per-level coefficients (one matrix shared by every column, as
 take the same signature, with ``a``, ``b`` and ``c`` the ``nz`` values of that matrix: a library
 may factorise it once per call into ``scratch`` (then ``2 nz`` elements) and substitute every
 column of its range.
+
+Column solves with one system per column shared by every variable (``sharedcoef``;
+``native_shared_columns``) take the seven-axis view ``(A, V1, B1, z, B2, V2, C)`` of
+``kernels.columns.common.shared_view``, in which var is V1 (outside z) or V2 (inside z)::
+
+    void symbol_f64(const T *a, const T *b, const T *c, /* var extent 1 (padded var: 1 + pad) */
+                    const T *d, T *x,                   /* (A, V1, B1, zext, B2, V2, C) */
+                    const int64_t *ext,                 /* 14: the seven extents of d's view, then a's */
+                    int64_t nz, int64_t nvar,           /* levels and variables to solve */
+                    int64_t lo, int64_t hi,             /* columns [lo, hi) of A x B1 x B2 x C */
+                    T *scratch)                         /* 2 nz elements, this thread's own */
+
+Column ``col`` is ``(ia, ib, ic)`` over ``(A, B1 * B2, C)``, with ``ib`` indexing B1 when
+``B1 > 1`` else B2; variable ``v`` is ``(v1, v2) = (v, 0)`` when ``V1 > 1`` else ``(0, v)``.
+Element ``(ia, v1, ib1, k, ib2, v2, ic)`` sits at the C-order offset of those indices in those
+extents; a, b, c use their own seven (their var axis holds 1 value, plus any padding).
 """
 
 from __future__ import annotations
@@ -67,6 +83,7 @@ COLUMN_CYCLIC = Schedule("cyclic", "runs of 64 columns dealt round-robin to thre
 
 _ARGTYPES = [ctypes.c_void_p] * 8 + [ctypes.c_int64] * 6
 _COLUMN_ARGTYPES = [ctypes.c_void_p] * 5 + [ctypes.c_int64] * 6 + [ctypes.c_void_p]
+_SHARED_ARGTYPES = [ctypes.c_void_p] * 6 + [ctypes.c_int64] * 4 + [ctypes.c_void_p]
 
 _c64: Any = None
 _c32: Any = None
@@ -109,6 +126,25 @@ def _native_columns(a, b, c, d, x, nz, cyclic, scratch):  # type: ignore[no-unty
                 _c32(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, outer, zext, inner, nz, first, end, ws.ctypes)
 
 
+def _native_shared_columns(a, b, c, d, x, ext, nz, nvar, cyclic, scratch):  # type: ignore[no-untyped-def]
+    """Shared-system column solves over the seven-axis views; each thread hands its columns to the
+    library as one range (block) or runs of 64 (cyclic)."""
+    ncol = ext[0] * ext[2] * ext[4] * ext[6]
+    nchunks = scratch.shape[0]
+    wide = x.itemsize == 8
+    nruns = (ncol + 63) // 64
+    for t in prange(nchunks):
+        lo, hi = chunk(ncol, nchunks, t)
+        calls = nruns if cyclic else 1
+        for n in range(t if cyclic else 0, calls, nchunks if cyclic else 1):
+            first, end = (n * 64, min(n * 64 + 64, ncol)) if cyclic else (lo, hi)
+            ws = scratch[t]
+            if wide:
+                _c64(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, ext.ctypes, nz, nvar, first, end, ws.ctypes)
+            else:
+                _c32(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, ext.ctypes, nz, nvar, first, end, ws.ctypes)
+
+
 def _bind(template: Any, library: str | Path, symbol: str, argtypes: list[Any], suffix: str) -> Compiled:
     try:
         lib = ctypes.CDLL(str(library))
@@ -141,6 +177,11 @@ def native_walk(library: str | Path, symbol: str) -> Compiled:
 def native_columns(library: str | Path, symbol: str) -> Compiled:
     """The column-solve driver calling ``symbol``_f64 / ``symbol``_f32 (column family signature)."""
     return _bind(_native_columns, library, symbol, _COLUMN_ARGTYPES, "native_columns")
+
+
+def native_shared_columns(library: str | Path, symbol: str) -> Compiled:
+    """The shared-system column-solve driver calling ``symbol``_f64 / ``symbol``_f32 (its signature above)."""
+    return _bind(_native_shared_columns, library, symbol, _SHARED_ARGTYPES, "native_shared_columns")
 
 
 #: Flags of ``compile_c``: full optimisation for the machine that runs the sweep.

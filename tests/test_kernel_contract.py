@@ -183,10 +183,11 @@ def test_the_native_c_stencil_example_meets_the_contract(monkeypatch: pytest.Mon
 @pytest.mark.parametrize("example, numba_name, numba_schedule, schedule", [
     ("native_varcoef", "varcoef", "column", "block"),  # 3-D coefficients
     ("native_levelcoef", "levelcoef", "column", "cyclic"),  # per-level coefficients, same signature
+    ("native_sharedcoef", "sharedcoef", "column", "block"),  # one system per column: the seven-axis signature
 ])
 def test_the_native_c_column_solve_examples_meet_the_contract(monkeypatch: pytest.MonkeyPatch, example: str, numba_name: str,
                                                               numba_schedule: str, schedule: str) -> None:
-    """docs/examples/native_varcoef.c and native_levelcoef.c (the column family's C signature),
+    """docs/examples/native_varcoef.c, native_levelcoef.c and native_sharedcoef.c (the column family's C signatures),
     validated in every contract layout, both dtypes, both schedules and builds; float64 output
     within rounding of the numba solve's (the C code multiplies by 1/m in another order)."""
     from kernels.native import c_compiler
