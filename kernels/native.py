@@ -74,7 +74,7 @@ from numba import prange
 
 from kernels.base import Schedule
 from kernels.errors import KernelError
-from kernels.jit import Compiled, build
+from kernels.jit import Compiled, build, inline
 from kernels.parallel import chunk
 
 #: Schedules of a native column solve: how the columns are dealt to threads (the library decides the rest).
@@ -105,44 +105,46 @@ def _native_walk(q, out, extra, counts, strides, wstrides, jmul, imul, dy, dx, w
                 _c32(q.ctypes, out.ctypes, counts.ctypes, strides.ctypes, jmul.ctypes, imul.ctypes, dy.ctypes, dx.ctypes, ny, nx, halo, edge, first, end)
 
 
+@inline
+def _calls(t, ncol, nchunks, cyclic):  # type: ignore[no-untyped-def]
+    """(start, stop, step) of the library calls thread ``t`` makes: one for its contiguous range
+    (block), or one per run of 64 columns dealt round-robin (cyclic)."""
+    return (t, (ncol + 63) // 64, nchunks) if cyclic else (0, 1, 1)
+
+
+@inline
+def _columns_of(n, t, ncol, nchunks, cyclic):  # type: ignore[no-untyped-def]
+    """Columns [first, end) of call ``n`` of thread ``t``."""
+    lo, hi = chunk(ncol, nchunks, t)
+    return (n * 64, min(n * 64 + 64, ncol)) if cyclic else (lo, hi)
+
+
 def _native_columns(a, b, c, d, x, nz, cyclic, scratch):  # type: ignore[no-untyped-def]
-    """Column solves over (outer, z, inner) views; each thread hands its columns to the library:
-    one contiguous range (block), or runs of 64 columns dealt round-robin (cyclic). The view's
-    extents come from d (a, b, c may be the nz values of a per-level matrix)."""
+    """Column solves over (outer, z, inner) views; each thread hands its columns to the library.
+    The view's extents come from d (a, b, c may be the nz values of a per-level matrix)."""
     outer, zext, inner = d.shape[0], d.shape[1], d.shape[2]
-    ncol = outer * inner
     nchunks = scratch.shape[0]
-    wide = x.itemsize == 8
-    nruns = (ncol + 63) // 64
     for t in prange(nchunks):
-        lo, hi = chunk(ncol, nchunks, t)
-        calls = nruns if cyclic else 1
-        for n in range(t if cyclic else 0, calls, nchunks if cyclic else 1):
-            first, end = (n * 64, min(n * 64 + 64, ncol)) if cyclic else (lo, hi)
-            ws = scratch[t]
-            if wide:
-                _c64(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, outer, zext, inner, nz, first, end, ws.ctypes)
+        start, stop, step = _calls(t, outer * inner, nchunks, cyclic)
+        for n in range(start, stop, step):
+            lo, hi = _columns_of(n, t, outer * inner, nchunks, cyclic)
+            if x.itemsize == 8:
+                _c64(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, outer, zext, inner, nz, lo, hi, scratch[t].ctypes)
             else:
-                _c32(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, outer, zext, inner, nz, first, end, ws.ctypes)
+                _c32(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, outer, zext, inner, nz, lo, hi, scratch[t].ctypes)
 
 
 def _native_shared_columns(a, b, c, d, x, ext, nz, nvar, cyclic, scratch):  # type: ignore[no-untyped-def]
-    """Shared-system column solves over the seven-axis views; each thread hands its columns to the
-    library as one range (block) or runs of 64 (cyclic)."""
+    """Shared-system column solves over the seven-axis views (``ext``: d's extents, then a's)."""
     ncol = ext[0] * ext[2] * ext[4] * ext[6]
-    nchunks = scratch.shape[0]
-    wide = x.itemsize == 8
-    nruns = (ncol + 63) // 64
-    for t in prange(nchunks):
-        lo, hi = chunk(ncol, nchunks, t)
-        calls = nruns if cyclic else 1
-        for n in range(t if cyclic else 0, calls, nchunks if cyclic else 1):
-            first, end = (n * 64, min(n * 64 + 64, ncol)) if cyclic else (lo, hi)
-            ws = scratch[t]
-            if wide:
-                _c64(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, ext.ctypes, nz, nvar, first, end, ws.ctypes)
+    for t in prange(scratch.shape[0]):
+        start, stop, step = _calls(t, ncol, scratch.shape[0], cyclic)
+        for n in range(start, stop, step):
+            lo, hi = _columns_of(n, t, ncol, scratch.shape[0], cyclic)
+            if x.itemsize == 8:
+                _c64(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, ext.ctypes, nz, nvar, lo, hi, scratch[t].ctypes)
             else:
-                _c32(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, ext.ctypes, nz, nvar, first, end, ws.ctypes)
+                _c32(a.ctypes, b.ctypes, c.ctypes, d.ctypes, x.ctypes, ext.ctypes, nz, nvar, lo, hi, scratch[t].ctypes)
 
 
 def _bind(template: Any, library: str | Path, symbol: str, argtypes: list[Any], suffix: str) -> Compiled:
