@@ -14,7 +14,8 @@ import pandas as pd
 from harness.roof import RoofCurve
 from kernels.notation import parse_layout
 
-STEP = "step"  # the weighted time step's column label
+#: The weighted time step's column key: a space, so no kernel name (letters, digits, '_') equals it.
+STEP = "weighted step"
 
 
 @dataclass(frozen=True)

@@ -101,7 +101,8 @@ def _heatmap(heat: pictures.Heatmap, path: str, written: list[str]) -> None:
     fig, ax = plt.subplots(figsize=(3 + 0.75 * len(heat.columns), 1.6 + 0.42 * len(heat.rows)))
     _slowdown_image(fig, ax, heat.slowdown, "time over the column's best (log scale)")
     labels = [f"{k}\n{t} thr" if k != pictures.STEP else f"weighted\nstep, {t} thr" for k, t in heat.columns]
-    ax.set_xticks(range(len(labels)), labels, fontsize=7)
+    long_names = max(len(k) for k, _ in heat.columns) > 12  # would overlap their neighbours level
+    ax.set_xticks(range(len(labels)), labels, fontsize=7, rotation=30 if long_names else 0, ha="right" if long_names else "center")
     ax.set_yticks(range(len(heat.rows)), heat.rows, fontsize=8)
     for i, j in zip(*np.nonzero(heat.leading)):
         ax.add_patch(Rectangle((j - 0.5, i - 0.5), 1, 1, fill=False, edgecolor="#00a0ff", lw=2))

@@ -29,25 +29,27 @@ CURVES = {
 }
 
 
-def _ranking(mix: bool = True, reference: str | None = None):
+def _ranking(mix: bool = True, reference: str | None = None, second: str = "k2"):
+    """``second`` renames kernel k2 (e.g. to a name the pictures also use)."""
     rng = np.random.default_rng(7)
     cases, samples = [], []
-    for (kernel, threads), times in TRUE.items():
+    for (name, threads), times in TRUE.items():
+        kernel = second if name == "k2" else name
         rounds = 24
         shared = 1 + 0.2 * np.sin(np.linspace(0, 3 * np.pi, rounds))
         for layout, t in times.items():
             cid = f"{kernel}|s|parallel|{layout}|float64|{GRID}|{threads}"
             cases.append({"case_id": cid, "kernel": kernel, "family": "stencils", "schedule": "s", "build": "parallel",
                           "layout": layout, "dtype": "float64", "grid": GRID, "threads": threads, "status": "ok", "message": "",
-                          "traffic_bytes": FOOTPRINT[kernel], "flops": FOOTPRINT[kernel] // (4 if kernel == "k1" else 2),
-                          "footprint_bytes": FOOTPRINT[kernel], "roof_gbps": np.nan, "overhead_bound": False,
+                          "traffic_bytes": FOOTPRINT[name], "flops": FOOTPRINT[name] // (4 if name == "k1" else 2),
+                          "footprint_bytes": FOOTPRINT[name], "roof_gbps": np.nan, "overhead_bound": False,
                           "vectorised": True, "machine": "m"})
             ns = t * shared * np.exp(rng.normal(0, 0.01, rounds))
             samples += [{"case_id": cid, "round": r + 1000 * threads, "position": 0, "phase": "measure", "ns": v,
                          "machine": "m", "build": "parallel", "block": 0} for r, v in enumerate(ns)]
     workers = {str(t): {"roof": c.as_dict(), "compute_roof": {"float64": {"flops_per_s": 4e10 * t}}} for t, c in CURVES.items()}
     meta = RunMetadata({"fingerprint": {"machine_id": "m"}, "workers": workers,
-                        "suite": {"name": "demo", "mix": [["k1", 2], ["k2", 1]] if mix else []}})
+                        "suite": {"name": "demo", "mix": [["k1", 2], [second, 1]] if mix else []}})
     runs = Runs(pd.DataFrame(cases), pd.DataFrame(samples), {"m": meta}, {"m": [meta]})
     return rank_runs(runs, RankOptions(reference=reference))
 
@@ -73,6 +75,17 @@ def test_heatmap_numbers_are_the_ranking_table_and_rows_follow_the_step_rank() -
     by_hand = (2 * medians["k1"] + medians["k2"]) / (2 * medians["k1"] + medians["k2"]).min()
     np.testing.assert_allclose(step, by_hand.loc[heat.rows].to_numpy())
     assert heat.leading[0, -1]  # the best single layout is outlined
+
+
+def test_a_kernel_named_step_keeps_its_own_column_beside_the_weighted_step() -> None:
+    """The whole-step kernel is called ``step``: its heatmap column is its ranking, not the mix."""
+    ranking = _ranking(second="step")
+    (heat,) = pictures.heatmaps(ranking)
+    assert heat.columns.count(("step", 2)) == 1 and heat.columns.count((pictures.STEP, 2)) == 1
+    j = heat.columns.index(("step", 2))
+    col = ranking.table[(ranking.table["kernel"] == "step") & (ranking.table["threads"] == 2)].set_index("layout")
+    np.testing.assert_allclose(heat.slowdown[:, j], col.loc[heat.rows, "time_vs_best"].to_numpy())
+    assert not np.allclose(heat.slowdown[:, j], heat.slowdown[:, heat.columns.index((pictures.STEP, 2))])
 
 
 def test_without_weights_rows_follow_the_geometric_mean_slowdown() -> None:
