@@ -17,7 +17,7 @@ from typing import Any, Callable
 import numpy as np
 from numba import prange
 
-from kernels.jit import Compiled, build
+from kernels.jit import Compiled, build, inline
 from kernels.layout import TILES, WITHIN
 from kernels.parallel import chunk, dot4, unflatten4
 from kernels.state import State
@@ -78,6 +78,20 @@ def band_geometry(state: State, halo: int) -> BandGeometry:
     )
 
 
+@inline
+def copy_band_rows(q, qt, rest, yoff, runs, j0, first, last, frame, halo, tile_x, nx):  # type: ignore[no-untyped-def]
+    """Scratch rows [first, last) of the band starting at logical row j0 (row r holds j0 + r - halo),
+    gathered from the tile runs of the state into plain rows of ``frame`` elements."""
+    u = np.uintp
+    for r in range(first, last):
+        srow = r * frame + halo
+        yo = rest + yoff[j0 + r]
+        for run in range(runs.shape[0]):
+            src, dst = yo + runs[run], srow + run * tile_x
+            for c in range(min(tile_x, nx - run * tile_x)):
+                qt[u(dst + c)] = q[u(src + c)]
+
+
 def _band_walk(q, out, extra, counts, strides, jmul, yoff, runs, nx, tile_y, tile_x, halo, sdy, sdx, qs, os, consts, nchunks, cyclic):  # type: ignore[no-untyped-def]
     """Template of the band walk; ``band_walk`` binds ``_offsets`` and ``_point``. A partial last
     tile (along y or x) gives a shorter band or a shorter last run."""
@@ -95,13 +109,9 @@ def _band_walk(q, out, extra, counts, strides, jmul, yoff, runs, nx, tile_y, til
             rest = dot4(i0, i1, i2, i3, strides)
             j0 = dot4(i0, i1, i2, i3, jmul)
             rows = min(tile_y, ny - j0)
-            for r in range(rows + 2 * halo):  # the band and its halo rows, into scratch
+            copy_band_rows(q, qt, rest, yoff, runs, j0, 0, rows + 2 * halo, frame, halo, tile_x, nx)
+            for r in range(rows + 2 * halo):
                 srow = r * frame + halo
-                yo = rest + yoff[j0 + r]
-                for run in range(runs.shape[0]):
-                    src, dst = yo + runs[run], srow + run * tile_x
-                    for c in range(min(tile_x, nx - run * tile_x)):
-                        qt[u(dst + c)] = q[u(src + c)]
                 for c in range(halo):  # periodic in x: the ring repeats the far end of the row
                     qt[u(srow - halo + c)] = qt[u(srow + nx - halo + c)]
                     qt[u(srow + nx + c)] = qt[u(srow + c)]

@@ -2,8 +2,9 @@
 
 The grid's y and x are the stored extents, halo included; a stencil writes the interior, ``halo``
 cells in from every side, and leaves the halo of its output alone (an exchange refills it). The
-walk is the periodic row walk's, with each row clipped to the interior: interior points never
-reach past the halo, so the periodic displacement tables give their plain neighbours.
+walks are the periodic stencils' row walk and band walk, clipped to the interior: interior points
+never reach past the halo, so the periodic tables (and wrapped scratch rows) give their plain
+neighbours and the wrapped values are never read.
 """
 
 from __future__ import annotations
@@ -20,6 +21,7 @@ from kernels.errors import KernelError
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
+from kernels.stencils.bands import band_geometry, copy_band_rows, has_band_form, scratch_offsets
 from kernels.stencils.common import CYCLIC, Stencil, row_geometry, row_length
 
 _offsets: Callable[..., Any] | None = None
@@ -68,13 +70,56 @@ def _limited(q, out, extra, counts, strides, jmul, imul, dy, dx, edge, bounds, c
                     _point(q, out, extra, rb + tt, rb + tt, offs, consts)
 
 
+def _limited_bands(q, out, extra, counts, strides, jmul, yoff, runs, nx, tile_y, tile_x, halo, bounds, sdy, sdx, qs, os, consts, nchunks, cyclic):  # type: ignore[no-untyped-def]
+    """The band walk for tiled layouts, clipped to the interior ``bounds`` = (j0, j1, i0, i1):
+    each band (one tile row of a level, all of x, ``halo`` rows above and below) is copied into
+    scratch as plain rows; interior points are computed there and only they are copied back."""
+    nitems = counts[0] * counts[1] * counts[2] * counts[3]
+    ny = yoff.shape[0] - 2 * halo
+    frame = nx + 2 * halo
+    j_lo, j_hi, i_lo, i_hi = bounds[0], bounds[1], bounds[2], bounds[3]
+    u = np.uintp
+    for t in prange(nchunks):
+        lo, hi = chunk(nitems, nchunks, t)
+        start, stop, step = (t, nitems, nchunks) if cyclic else (lo, hi, 1)
+        offs = _offsets(sdy, sdx, sdy, sdx, 0, 0)
+        qt, ot = qs[t], os[t]
+        for item in range(start, stop, step):
+            i0, i1, i2, i3 = unflatten4(item, counts)
+            rest = dot4(i0, i1, i2, i3, strides)
+            j0 = dot4(i0, i1, i2, i3, jmul)
+            r_lo, r_hi = max(j_lo - j0, 0), min(j_hi - j0, tile_y, ny - j0)  # the band's interior rows
+            if r_hi <= r_lo:
+                continue
+            # those rows and their halo rows (stored, never wrapped)
+            copy_band_rows(q, qt, rest, yoff, runs, j0, r_lo, r_hi + 2 * halo, frame, halo, tile_x, nx)
+            for r in range(r_lo, r_hi):
+                p0 = (r + halo) * frame + halo
+                for c in range(i_lo, i_hi):
+                    _point(qt, ot, extra, p0 + c, p0 + c, offs, consts)
+                yo = rest + yoff[j0 + halo + r]
+                for run in range(runs.shape[0]):
+                    c0, c1 = max(i_lo, run * tile_x), min(i_hi, run * tile_x + tile_x, nx)
+                    for c in range(c0, c1):
+                        out[u(yo + runs[run] + c - run * tile_x)] = ot[u(p0 + c)]
+
+
 def limited_walk(name: str, offsets: Callable[..., Any], point: Callable[..., Any]) -> Compiled:
     """The compiled limited-area walk of one stencil, from the same two pieces as ``row_walk``."""
     namespace = dict(_limited.__globals__, _offsets=offsets, _point=point)
     walk = types.FunctionType(_limited.__code__, namespace, f"{name}_interior_rows")
     walk.__qualname__ = walk.__name__
     walk.__module__ = _limited.__module__
-    return build(walk)
+    compiled = build(walk)
+    bands = types.FunctionType(_limited_bands.__code__, namespace, f"{name}_interior_bands")
+    bands.__qualname__ = bands.__name__
+    bands.__module__ = _limited_bands.__module__
+    _BANDS[compiled.name] = build(bands)
+    return compiled
+
+
+#: The clipped band walk of each limited-area stencil, by its row walk's compiled name.
+_BANDS: dict[str, Compiled] = {}
 
 
 class LimitedArea(Stencil):
@@ -115,6 +160,8 @@ class LimitedArea(Stencil):
     def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
         """A row along var or z runs whole; a row of all of x runs its interior; a row of one
         x tile runs between the edge elements looked up one by one."""
+        if self._walks_bands(problem):
+            return problem.extents.x - 2 * self.halo
         g = row_geometry(problem.fields["q"], self.radius, self.merge_vertical)
         row = int(g.counts[-1])
         if g.edge == 0:
@@ -123,10 +170,23 @@ class LimitedArea(Stencil):
             return problem.extents.x - 2 * self.halo
         return max(row - 2 * g.edge, 0)
 
+    def _walks_bands(self, problem: Problem) -> bool:
+        return has_band_form(problem.fields["q"]) and min(problem.extents.x, problem.extents.y) >= self.radius
+
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         q = problem.fields["q"]
-        g = row_geometry(q, self.radius, self.merge_vertical)
         bounds = np.array(self.interior(problem.extents), dtype=np.int64)
+        if self._walks_bands(problem):
+            h = self.radius
+            g = band_geometry(q, h)
+            frame = problem.extents.x + 2 * h
+            sdy, sdx = scratch_offsets(h, frame)
+            scratch = lambda: np.zeros((thread_count(), (q.layout.tiles["y"] + 2 * h) * frame), problem.dtype)  # noqa: E731
+            args = (q.data.reshape(-1), problem.output.data.reshape(-1), (), g.counts, g.strides, g.jmul, g.yoff, g.runs,
+                    problem.extents.x, q.layout.tiles["y"], q.layout.tiles["x"], h, bounds, sdy, sdx, scratch(), scratch(),
+                    self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name))
+            return _BANDS[self.walk.name], args
+        g = row_geometry(q, self.radius, self.merge_vertical)
         args = (q.data.reshape(-1), problem.output.data.reshape(-1), (), g.counts, g.strides, g.jmul, g.imul, g.dy, g.dx,
                 g.edge, bounds, self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name))
         return self.walk, args
