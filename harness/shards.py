@@ -33,14 +33,15 @@ def parse_shard(text: str) -> tuple[int, int]:
 
 def expected_seconds(group: Group, suite: Suite) -> float:
     """A rough time for one group: a fixed cost per case plus its rounds at an assumed bandwidth."""
+    from harness.prepare import kernel_with_options
     from kernels.registry import get_kernel
 
     extents = Extents.parse(group.grid)
     rounds = suite.timing.warmup + suite.timing.min_repeats
-    traffic = 0.0
+    traffic, options = 0.0, dict(suite.kernel_options)
     for case in group.cases:
         if group.kind is CaseKind.KERNEL:
-            traffic += get_kernel(part_of(case.kernel)).traffic_bytes(extents, case.dtype)
+            traffic += kernel_with_options(get_kernel(part_of(case.kernel)), options).traffic_bytes(extents, case.dtype)
         else:
             traffic += 2.0 * extents.points * (4 if case.dtype == "float32" else 8)
     return len(group.cases) * SECONDS_PER_CASE + rounds * traffic / (BANDWIDTH_PER_THREAD * group.threads)

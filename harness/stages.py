@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from harness.cases import CaseKind, of_kind, whole_of
+from harness.cases import CaseKind, of_kind, part_of, whole_of
 from harness.intervals import Interval, Rounds, median_interval, ratio_interval
 from harness.stats import holm, slower_beyond, split_rounds
 
@@ -37,11 +37,10 @@ def stage_comparison(cases: pd.DataFrame, samples: pd.DataFrame, table: pd.DataF
         whole = cases[(cases["kernel"] == entry["kernel"]) & (cases["build"] == "parallel") & (cases[keys] == entry[keys]).all(axis=1)]
         if mine.empty or whole.empty:
             continue
-        rounds, parts = _paired_rounds(samples, whole.iloc[0]["case_id"], mine)
+        name = f"stages|{entry['machine']}|{entry['kernel']}|{entry['grid']}|{entry['dtype']}|{entry['threads']}|{entry['layout']}"
+        rounds, parts = _paired_rounds(samples, whole.iloc[0]["case_id"], mine, name)
         if rounds is None:
             continue
-        name = f"stages|{entry['machine']}|{entry['kernel']}|{entry['grid']}|{entry['dtype']}|{entry['threads']}|{entry['layout']}"
-        rounds = Rounds(rounds.labels, rounds.ns, rounds.blocks, name)
         w, s = rounds.column(WHOLE), rounds.column(STAGES)
         p_faster, p_slower = slower_beyond(s, w, floor), slower_beyond(w, s, floor)
         p_values += [p_faster, p_slower]
@@ -65,23 +64,21 @@ def _ms(ns: Interval) -> Interval:
     return Interval(ns.value / 1e6, ns.lo / 1e6, ns.hi / 1e6)
 
 
-def _paired_rounds(samples: pd.DataFrame, whole_id: str, stage_cases: pd.DataFrame) -> tuple[Rounds | None, list[tuple[str, float]]]:
+def _paired_rounds(samples: pd.DataFrame, whole_id: str, stage_cases: pd.DataFrame, name: str
+                   ) -> tuple[Rounds | None, list[tuple[str, float]]]:
     """The reporting rounds of the whole and of its stages' per-round sum, and each stage's median there."""
     def series(cid: str) -> pd.Series:
         return samples[samples["case_id"] == cid].set_index("round")["ns"]
 
-    whole = series(whole_id)
     stage = {part: series(cid) for part, cid in zip(stage_cases["kernel"], stage_cases["case_id"])}
-    frame = pd.concat({WHOLE: whole, **stage}, axis=1, join="inner").dropna()
+    frame = pd.concat({WHOLE: series(whole_id), **stage}, axis=1, join="inner").dropna()
     if frame.empty:
         return None, []
     _, report = split_rounds(list(frame.index))
     frame = frame.loc[report]
     blocks = samples.drop_duplicates("round").set_index("round")["block"] if "block" in samples else None
-    summed = pd.DataFrame({WHOLE: frame[WHOLE], STAGES: frame[list(stage)].sum(axis=1)})
-    parts = [(part.split(".", 1)[1], float(np.median(frame[part])) / 1e6) for part in stage]
-    b = np.zeros(len(summed), dtype=int) if blocks is None else blocks.reindex(summed.index).fillna(0).to_numpy(int)
-    return Rounds((WHOLE, STAGES), summed.to_numpy(float), b), parts
+    rounds = Rounds.from_series({WHOLE: frame[WHOLE], STAGES: frame[list(stage)].sum(axis=1)}, blocks, name)
+    return rounds, [(part_of(part), float(np.median(frame[part])) / 1e6) for part in stage]
 
 
 def stage_section(frame: pd.DataFrame, alpha: float, floor: float) -> list[str]:

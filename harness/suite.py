@@ -150,11 +150,10 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
     for layout in layouts:
         for size in sizes:
             parse_layout(layout).check(size)
-    configured = dict(options)
+    from harness.prepare import kernel_with_options
+
     for name in names:
-        kernel = registry[name]
-        halo = dict(configured.get(name, ())).get("halo")
-        kernel = kernel.with_options(halo=halo) if halo is not None else kernel
+        kernel = kernel_with_options(registry[name], dict(options))
         for size in sizes:
             reason = kernel.unsupported(size)
             if reason:

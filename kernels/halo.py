@@ -155,9 +155,10 @@ def halo_plan(layout: Layout | str, extents: Extents, dtype: Any, halo: int) -> 
     layout.check(extents)
     src_all, buf_all, rbuf_all, dst_all = [], [], [], []
     start, size, at = {}, {}, 0
+    box = boxes(extents, halo)
     for side in SIDES:
-        send_box = boxes(extents, halo)[side][0]
-        recv_box = boxes(extents, halo)[OPPOSITE[side]][1]  # this side's face lands in the neighbour's opposite halo
+        send_box = box[side][0]
+        recv_box = box[OPPOSITE[side]][1]  # this side's face lands in the neighbour's opposite halo
         sent = _offsets(layout, extents, dtype, send_box)
         order = np.argsort(sent, kind="stable")  # the sender's memory order
         position = np.empty(sent.size, dtype=np.int64)

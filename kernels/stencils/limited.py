@@ -21,7 +21,7 @@ from kernels.errors import KernelError
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
-from kernels.stencils.bands import band_geometry, copy_band_rows, has_band_form, scratch_offsets
+from kernels.stencils.bands import band_geometry, copy_band_rows, scratch_offsets
 from kernels.stencils.common import CYCLIC, Stencil, row_geometry, row_length
 
 _offsets: Callable[..., Any] | None = None
@@ -169,9 +169,6 @@ class LimitedArea(Stencil):
         if row >= problem.extents.x:
             return problem.extents.x - 2 * self.halo
         return max(row - 2 * g.edge, 0)
-
-    def _walks_bands(self, problem: Problem) -> bool:
-        return has_band_form(problem.fields["q"]) and min(problem.extents.x, problem.extents.y) >= self.radius
 
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         q = problem.fields["q"]
