@@ -13,6 +13,7 @@ import pandas as pd
 
 from harness.roof import RoofCurve
 from kernels.notation import parse_layout
+from kernels.layout import axis_extent
 
 #: The weighted time step's column key: a space, so no kernel name (letters, digits, '_') equals it.
 STEP = "weighted step"
@@ -178,7 +179,7 @@ def block_bytes(layout: str, extents: Any, footprint_bytes: float, threads: int)
     tiles = 1
     for tok in parse_layout(layout).tokens:
         if tok.part == "tiles":
-            tiles *= -(-getattr(extents, tok.axis) // tok.tile)
+            tiles *= -(-axis_extent(extents, tok.axis) // tok.tile)
     return float(min(footprint_bytes / threads, footprint_bytes / tiles))
 
 

@@ -158,6 +158,10 @@ def parse_suite(data: dict[str, Any], source: str = "<suite>") -> Suite:
             reason = kernel.unsupported(size)
             if reason:
                 raise SuiteError(f"grid '{size}': {reason}; change grid.sizes or leave the kernel out of kernels.select")
+        for layout in layouts:
+            reason = kernel.refuses(parse_layout(layout))
+            if reason:
+                raise SuiteError(f"{reason}; leave the layout out of layouts or the kernel out of kernels.select")
     tsec = data.get("threads", {})
     counts = tsec.get("counts", [1, 2])
     if isinstance(counts, str):

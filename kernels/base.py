@@ -107,6 +107,10 @@ class Kernel(ABC):
                     f"interior); got y={extents.y}, x={extents.x}")
         return None
 
+    def refuses(self, layout: Layout) -> str | None:
+        """Why this kernel cannot run in ``layout``, in one phrase (None: it can)."""
+        return None
+
     #: Why the var rule exists, for error messages (e.g. "couples variables in pairs").
     var_rule: str = "takes any var extent"
 

@@ -49,6 +49,45 @@ def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_
                     dst[np.uintp(rb + i5)] = src[np.uintp(s)]
 
 
+def convert_flat_rows(src, dst, counts, strides, mul, tv, tz, th, row_coord, extents, nchunks):  # type: ignore[no-untyped-def]
+    """The row conversion for pairs where either side blocks the flattened horizontal index.
+
+    mul[c, d]: step of coordinate c (var, z, y, x, h = y * nx + x) per index of dst axis d (a
+    ``yx`` token moves h alone; y and x stay 0 there); tv, tz, th: source element offset of each
+    var, level and flattened horizontal index; row_coord: the table coordinate (0 var, 1 z, 4 h)
+    dst's innermost axis moves; extents: var, z, y, x and y * x (positions past any of them lie
+    in the unused part of a partial last tile or block and are skipped)."""
+    n4, n5 = counts[4], counts[5]
+    nitems = counts[0] * counts[1] * counts[2] * counts[3]
+    for t in prange(nchunks):
+        lo, hi = chunk(nitems, nchunks, t)
+        for item in range(lo, hi):
+            i0, i1, i2, i3 = unflatten4(item, counts)
+            base = dot4(i0, i1, i2, i3, strides)
+            c0, c1, c2 = dot4(i0, i1, i2, i3, mul[0]), dot4(i0, i1, i2, i3, mul[1]), dot4(i0, i1, i2, i3, mul[2])
+            c3, c4 = dot4(i0, i1, i2, i3, mul[3]), dot4(i0, i1, i2, i3, mul[4])
+            for i4 in range(n4):
+                rb = base + i4 * strides[4]
+                a = (c0 + i4 * mul[0, 4], c1 + i4 * mul[1, 4], c2 + i4 * mul[2, 4], c3 + i4 * mul[3, 4], c4 + i4 * mul[4, 4])
+                nrow = n5
+                for c in range(5):
+                    if a[c] >= extents[c]:
+                        nrow = 0
+                    elif mul[c, 5] > 0:
+                        nrow = min(nrow, (extents[c] - a[c] + mul[c, 5] - 1) // mul[c, 5])
+                if nrow == 0:
+                    continue
+                step = mul[row_coord, 5]
+                if row_coord == 0:
+                    others, table, start = tz[a[1]] + th[a[4]], tv, a[0]
+                elif row_coord == 1:
+                    others, table, start = tv[a[0]] + th[a[4]], tz, a[1]
+                else:
+                    others, table, start = tv[a[0]] + tz[a[1]], th, a[4]
+                for i5 in range(nrow):
+                    dst[np.uintp(rb + i5)] = src[np.uintp(others + table[start + i5 * step])]
+
+
 def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ignore[no-untyped-def]
     """Copy between two untiled layouts. n, ss, ds: logical extents and element strides (src, dst)
     of the axes var, z, y, x and a fifth of extent 1; axes = (a1, a2, b, c, e): the destination's
@@ -103,6 +142,7 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
 
 
 CONVERT = build(convert_rows)
+CONVERT_FLAT = build(convert_flat_rows)
 TRANSPOSE = build(transpose_blocks)
 
 #: Side of the square blocks of the blocked transpose (elements). Measured on the development VM
@@ -119,7 +159,47 @@ def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
         raise KernelError(f"cannot convert {src} into {dst}: extents and dtype must match")
     if not (src.layout.is_tiled or dst.layout.is_tiled):
         return _transpose_args(src, dst)
+    if src.layout.flat_block or dst.layout.flat_block:
+        return _flat_conversion_args(src, dst)
     return row_conversion_args(src, dst)
+
+
+def _flat_conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
+    """``convert_flat_rows`` and its arguments: dst walked in memory order, source offsets from
+    tables over var, z and the flattened horizontal index."""
+    ext, nx = dst.extents, dst.extents.x
+    elem = [s // dst.data.itemsize for s in dst.data.strides]
+    axes = []
+    for pos, tok in enumerate(dst.layout.tokens):
+        step = [0] * 5
+        unit = tok.tile if tok.part == "tiles" else 1
+        if tok.axis in ("var", "z"):
+            step[LOGICAL_AXES.index(tok.axis)] = unit
+        elif tok.axis == "y":
+            step[2], step[4] = unit, unit * nx
+        elif tok.axis == "x":
+            step[3], step[4] = unit, unit
+        else:
+            step[4] = unit
+        axes.append((tok.count(ext), elem[pos], step))
+    while len(axes) < NDIM:
+        axes.insert(0, (1, 0, [0] * 5))
+    counts = np.array([a[0] for a in axes], dtype=np.int64)
+    strides = np.array([a[1] for a in axes], dtype=np.int64)
+    mul = np.array([[a[2][c] for a in axes] for c in range(5)], dtype=np.int64)
+    src_elem = [s // src.data.itemsize for s in src.data.strides]
+    tv, tz = (np.arange(ext[a], dtype=np.int64) * src_elem[src.layout.index_of(a)] for a in ("var", "z"))
+    h = np.arange(ext.y * nx, dtype=np.int64)
+    coords = {"y": h // nx, "x": h % nx, "yx": h}
+    th = np.zeros(h.size, dtype=np.int64)
+    for pos, tok in enumerate(src.layout.tokens):
+        if tok.axis in coords:
+            th += tok.logical_index(coords[tok.axis]).astype(np.int64) * src_elem[pos]
+    last = dst.layout.tokens[-1].axis
+    row_coord = LOGICAL_AXES.index(last) if last in ("var", "z") else 4
+    extents = np.array((*ext.shape, ext.y * nx), dtype=np.int64)
+    args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, mul, tv, tz, th, row_coord, extents, thread_count())
+    return CONVERT_FLAT, args
 
 
 def row_conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:

@@ -2,7 +2,9 @@
 
 A layout is a tuple of tokens, outermost first: a whole logical axis (``var``, ``z``, ``y``,
 ``x``) or one part of a tiled horizontal axis (the tile index, or the position in a tile), each
-with optional padding, plus a base offset in bytes. Its text form is in ``kernels.notation``;
+with optional padding, plus a base offset in bytes. Instead of y and x, a layout may block the
+flattened horizontal index ``h = y * nx + x`` (the blocking column physics uses): ``yx/N`` runs
+over the blocks of N points and ``yx%N`` over the positions in a block; a block may straddle rows. Its text form is in ``kernels.notation``;
 the families of layouts a suite expands are in ``kernels.families``.
 """
 
@@ -20,7 +22,15 @@ from kernels.grid import HORIZONTAL_AXES, LOGICAL_AXES, Extents, check_dtype
 ALIGNMENT = 64
 
 WHOLE, TILES, WITHIN = "whole", "tiles", "within"
-_VALID_NAMES = "var, z, y, x, y/N and x/N (tile index), y%N and x%N (position in a tile of N)"
+#: The flattened horizontal index ``y * nx + x``, which a layout may block in place of y and x.
+FLAT = "yx"
+_VALID_NAMES = ("var, z, y, x, y/N and x/N (tile index), y%N and x%N (position in a tile of N), "
+                "yx/N and yx%N (block and position over the flattened horizontal index, in place of y and x)")
+
+
+def axis_extent(extents: Extents, axis: str) -> int:
+    """Logical extent of a logical axis, or of the flattened horizontal index ``yx``."""
+    return extents.y * extents.x if axis == FLAT else extents[axis]
 _OP = {TILES: "/", WITHIN: "%"}
 _FILE_SAFE = str.maketrans({"/": "d", "%": "m", "+": "p", "@": "o"})
 
@@ -42,7 +52,7 @@ class Token:
 
     def count(self, extents: Extents) -> int:
         """Logical (unpadded) extent of this physical axis; a last, partial tile counts as a tile."""
-        n = extents[self.axis]
+        n = axis_extent(extents, self.axis)
         if self.part == TILES:
             return -(-n // self.tile)
         if self.part == WITHIN:
@@ -109,6 +119,11 @@ class Layout:
         return bool(self._tiles)
 
     @property
+    def flat_block(self) -> int | None:
+        """Points per block of the flattened horizontal index (``yx/N``), or None."""
+        return self._tiles.get(FLAT)
+
+    @property
     def is_padded(self) -> bool:
         return any(t.pad for t in self.tokens)
 
@@ -137,16 +152,17 @@ class Layout:
     def check(self, extents: Extents) -> None:
         """Raise LayoutError if the layout cannot hold a grid of these extents."""
         for axis, tile in self._tiles.items():
-            n = extents[axis]
+            n = axis_extent(extents, axis)
             if tile > n:
+                what = "y * x points" if axis == FLAT else f"extent {n} of axis '{axis}'"
                 raise LayoutError(
-                    f"tile size {tile} exceeds extent {n} of axis '{axis}' in layout '{self.spec}'; "
+                    f"tile size {tile} exceeds {what} in layout '{self.spec}'; "
                     f"valid tile sizes are 1..{n} (a tile that does not divide {n} leaves a partial last tile)"
                 )
 
     def remainder(self, extents: Extents) -> dict[str, int]:
         """Unused positions in the last tile of each tiled axis whose tile does not divide the extent."""
-        return {axis: -extents[axis] % tile for axis, tile in self._tiles.items() if extents[axis] % tile}
+        return {axis: -axis_extent(extents, axis) % tile for axis, tile in self._tiles.items() if axis_extent(extents, axis) % tile}
 
     def counts(self, extents: Extents) -> tuple[int, ...]:
         """Logical (unpadded) extent of each physical axis."""
@@ -190,6 +206,7 @@ class Layout:
         """Byte offset (from the array start) of logical element(s) ``(v, k, j, i)``."""
         strides = self.strides(extents, dtype)
         index = dict(zip(LOGICAL_AXES, (np.asarray(v), np.asarray(k), np.asarray(j), np.asarray(i))))
+        index[FLAT] = index["y"].astype(np.int64) * extents.x + index["x"]
         total = np.zeros(np.broadcast(*index.values()).shape, dtype=np.int64)
         for tok, stride in zip(self.tokens, strides):
             total = total + tok.logical_index(index[tok.axis]).astype(np.int64) * stride
@@ -205,7 +222,7 @@ class Layout:
             "strides_bytes": self.strides(extents, dt),
             "bytes": self.nbytes(extents, dt),
             "padding_bytes": self.nbytes(extents, dt) - extents.points * dt.itemsize,
-            "partial_tiles": {axis: f"last tile holds {self._tiles[axis] - left} of {self._tiles[axis]}"
+            "partial_tiles": {axis: f"last {'block' if axis == FLAT else 'tile'} holds {self._tiles[axis] - left} of {self._tiles[axis]}"
                               for axis, left in self.remainder(extents).items()},
             "contiguous": ".".join(self.contiguous_tokens(extents)),
             "alignment": ALIGNMENT,
@@ -220,19 +237,25 @@ def _validate(tokens: tuple[Token, ...], base_offset: int) -> None:
         raise LayoutError(f"base offset must be a non-negative number of bytes, got {base_offset!r}")
     seen: dict[tuple[str, str], Token] = {}
     for tok in tokens:
-        if tok.axis not in LOGICAL_AXES:
+        if tok.axis not in LOGICAL_AXES + (FLAT,):
             raise LayoutError(f"unknown axis '{tok.axis}'; valid tokens: {_VALID_NAMES}")
         if tok.pad < 0:
             raise LayoutError(f"negative pad {tok.pad} on token '{tok.axis}'; pads are >= 0")
-        if tok.part != WHOLE and tok.axis not in HORIZONTAL_AXES:
-            raise LayoutError(f"axis '{tok.axis}' cannot be tiled; only y and x can")
+        if tok.part != WHOLE and tok.axis not in HORIZONTAL_AXES + (FLAT,):
+            raise LayoutError(f"axis '{tok.axis}' cannot be tiled; only y and x (or the flattened yx) can")
+        if tok.axis == FLAT and tok.part == WHOLE:
+            raise LayoutError("the flattened horizontal index is written blocked, 'yx/N' and 'yx%N'; unblocked, write 'y.x'")
         if tok.part != WHOLE and tok.tile <= 0:
             raise LayoutError(f"tile size of '{tok.text}' must be positive")
         key = (tok.axis, tok.part)
         if key in seen:
             raise LayoutError(f"token '{tok.text}' repeats axis '{tok.axis}'; each axis appears once")
         seen[key] = tok
-    for axis in LOGICAL_AXES:
+    flat = any(a == FLAT for a, _ in seen)
+    if flat and any(a in HORIZONTAL_AXES for a, _ in seen):
+        raise LayoutError("a layout blocking the flattened horizontal index (yx/N, yx%N) names neither y nor x; "
+                          "e.g. yx/32.var.z.yx%32")
+    for axis in LOGICAL_AXES[:2] + ((FLAT,) if flat else HORIZONTAL_AXES):
         parts = {part for (a, part) in seen if a == axis}
         if not parts:
             raise LayoutError(f"layout is missing axis '{axis}'; a layout names each of var, z, y, x once")

@@ -5,13 +5,16 @@ Spec grammar (outermost token first, joined by ``.``, optional ``@N`` base offse
     spec    := token ("." token)* ["@" bytes]
     token   := axis [part] ["+" pad]
     axis    := "var" | "z" | "y" | "x"   a whole logical axis
-    part    := "/" size                  on y or x: the tile index, for tiles of ``size``
-             | "%" size                  on y or x: the position inside a tile of ``size``
+             | "yx"                      the flattened horizontal index y * nx + x (blocked only)
+    part    := "/" size                  on y, x or yx: the tile index, for tiles of ``size``
+             | "%" size                  on y, x or yx: the position inside a tile of ``size``
 
 Tiling is written as index arithmetic on the logical index: ``y/4`` runs over ``j // 4`` and
-``y%4`` over ``j % 4``; both parts of a tiled axis appear, with the same size.
+``y%4`` over ``j % 4``; both parts of a tiled axis appear, with the same size. ``yx/32`` and
+``yx%32`` block the flattened horizontal index ``h = j * nx + i`` into runs of 32 columns, as
+column physics often stores its state; a layout with them names neither y nor x.
 
-Examples: ``var.z.y.x``, ``y.x.z.var``, ``y/4.x/8.var.z.y%4.x%8``, ``var.z.y+1.x+8``,
+Examples: ``var.z.y.x``, ``y.x.z.var``, ``y/4.x/8.var.z.y%4.x%8``, ``yx/32.var.z.yx%32``, ``var.z.y+1.x+8``,
 ``var.z.y.x@128`` (buffer starts 128 bytes past a 64-byte boundary).
 """
 
@@ -21,7 +24,7 @@ import re
 
 from kernels.errors import LayoutError
 from kernels.grid import HORIZONTAL_AXES, LOGICAL_AXES
-from kernels.layout import _VALID_NAMES, TILES, WHOLE, WITHIN, Layout, Token
+from kernels.layout import _VALID_NAMES, FLAT, TILES, WHOLE, WITHIN, Layout, Token
 
 _TOKEN_RE = re.compile(r"^(?P<name>[A-Za-z]+)(?P<digits>\d*)(?:(?P<op>[/%])(?P<size>[^+]*))?(?:(?P<plus>\+)(?P<pad>.*))?$")
 
@@ -52,7 +55,10 @@ def _parse_token(piece: str, text: str) -> Token:
             f"token '{piece}' in '{text}' uses an unsupported tiling form; write a tiled axis as "
             f"'{axis}/N' (tile index) and '{axis}%N' (position in the tile), e.g. y/8.x/16.var.z.y%8.x%16"
         )
-    if name not in LOGICAL_AXES or m["digits"]:
+    if name == FLAT and not op:
+        raise LayoutError(f"token '{piece}' in '{text}': the flattened horizontal index is blocked, written 'yx/N' (block) "
+                          f"and 'yx%N' (position in the block), e.g. yx/32.var.z.yx%32; unblocked, write y.x")
+    if name not in LOGICAL_AXES + (FLAT,) or m["digits"]:
         raise LayoutError(f"unknown token '{piece}' in '{text}'; valid tokens: {_VALID_NAMES}")
     pad = 0
     if m["plus"]:
@@ -63,8 +69,8 @@ def _parse_token(piece: str, text: str) -> Token:
             raise LayoutError(f"negative pad in token '{piece}'; pads are >= 0")
     if not op:
         return Token(name, WHOLE, 0, pad)
-    if name not in HORIZONTAL_AXES:
-        raise LayoutError(f"axis '{name}' cannot be tiled (token '{piece}'); only y and x can")
+    if name not in HORIZONTAL_AXES + (FLAT,):
+        raise LayoutError(f"axis '{name}' cannot be tiled (token '{piece}'); only y and x (or the flattened yx) can")
     if not size_text.isdigit() or int(size_text) <= 0:
         raise LayoutError(f"tile size in '{piece}' must be a positive integer, e.g. {name}{op}8")
     return Token(name, TILES if op == "/" else WITHIN, int(size_text), pad)

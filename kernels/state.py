@@ -10,7 +10,7 @@ import numpy as np
 
 from kernels.errors import LayoutError
 from kernels.grid import LOGICAL_AXES, Extents, check_dtype
-from kernels.layout import ALIGNMENT, TILES, WITHIN, Layout
+from kernels.layout import ALIGNMENT, FLAT, TILES, WITHIN, Layout
 from kernels.notation import as_layout
 
 
@@ -78,11 +78,16 @@ class State:
     def dtype(self) -> np.dtype:
         return self.data.dtype
 
+    def _groups(self) -> tuple[tuple[str, int], ...]:
+        """The logical axes as the layout groups them: var, z, then y and x, or the flattened yx."""
+        if self.layout.flat_block:
+            return (("var", self.extents.var), ("z", self.extents.z), (FLAT, self.extents.y * self.extents.x))
+        return tuple(zip(LOGICAL_AXES, self.extents.shape))
+
     def _split_shape(self) -> tuple[int, ...]:
-        """Logical shape with each tiled axis split into (tiles, within)."""
+        """Grouped logical shape with each tiled axis split into (tiles, within)."""
         out: list[int] = []
-        for axis in LOGICAL_AXES:
-            n = self.extents[axis]
+        for axis, n in self._groups():
             tile = self.layout.tiles.get(axis)
             out.extend((-(-n // tile), tile) if tile else (n,))
         return tuple(out)
@@ -91,7 +96,7 @@ class State:
         """For each physical axis, its position in the split logical shape."""
         pos: dict[tuple[str, str], int] = {}
         i = 0
-        for axis in LOGICAL_AXES:
+        for axis, _ in self._groups():
             if axis in self.layout.tiles:
                 pos[(axis, TILES)], pos[(axis, WITHIN)] = i, i + 1
                 i += 2
@@ -110,27 +115,32 @@ class State:
         return self.interior().transpose(np.argsort(self._split_positions()))
 
     # -- conversion -----------------------------------------------------------------------
+    def _grouped_shape(self) -> tuple[int, ...]:
+        return tuple(n for _, n in self._groups())
+
     def _covered_shape(self) -> tuple[int, ...]:
-        """Logical shape rounded up to whole tiles (the extents when no tile is partial)."""
+        """Grouped logical shape rounded up to whole tiles (the grouped shape when no tile is partial)."""
         tiles = self.layout.tiles
-        return tuple(-(-n // tiles[a]) * tiles[a] if a in tiles else n for a, n in zip(LOGICAL_AXES, self.extents.shape))
+        return tuple(-(-n // tiles[a]) * tiles[a] if a in tiles else n for a, n in self._groups())
 
     def to_logical(self) -> np.ndarray:
         """A new C-contiguous logical ``(var, z, y, x)`` array (exact copy of the values)."""
         covered = np.ascontiguousarray(self.split_view()).reshape(self._covered_shape())
-        if covered.shape == self.extents.shape:
-            return covered
-        return np.ascontiguousarray(covered[tuple(slice(0, n) for n in self.extents.shape)])
+        grouped = self._grouped_shape()
+        if covered.shape != grouped:
+            covered = np.ascontiguousarray(covered[tuple(slice(0, n) for n in grouped)])
+        return covered.reshape(self.extents.shape)
 
     def assign_logical(self, values: np.ndarray) -> None:
         """Overwrite every logical value from a ``(var, z, y, x)`` array; padding is untouched."""
         values = np.asarray(values)
         if values.shape != self.extents.shape:
             raise LayoutError(f"logical array of shape {values.shape} does not match extents {self.extents}")
-        covered = self._covered_shape()
-        if covered != self.extents.shape:  # partial tiles: keep what the unused positions hold
+        covered, grouped = self._covered_shape(), self._grouped_shape()
+        values = values.reshape(grouped)
+        if covered != grouped:  # partial tiles: keep what the unused positions hold
             whole = np.ascontiguousarray(self.split_view()).reshape(covered).astype(values.dtype, copy=False)
-            whole[tuple(slice(0, n) for n in self.extents.shape)] = values
+            whole[tuple(slice(0, n) for n in grouped)] = values
             values = whole
         split = values.reshape(self._split_shape())
         self.interior()[...] = split.transpose(self._split_positions())
@@ -145,7 +155,7 @@ class State:
         """Write this state's values into ``target`` (another layout, same extents)."""
         if target.extents != self.extents:
             raise LayoutError(f"cannot copy a state of extents {self.extents} into one of {target.extents}")
-        if target.layout.tiles == self.layout.tiles:
+        if target.layout.tiles == self.layout.tiles and bool(target.layout.flat_block) == bool(self.layout.flat_block):
             # Same split: one strided copy, no intermediate logical array.
             target.interior()[...] = self.split_view().transpose(target._split_positions())
         else:

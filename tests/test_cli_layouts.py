@@ -41,6 +41,14 @@ def test_json_and_md(capsys: pytest.CaptureFixture[str]) -> None:
     assert code == 0 and out.startswith("| layout") and "var.z.y+1.x+8" in out
 
 
+def test_flattened_horizontal_blocks(capsys: pytest.CaptureFixture[str]) -> None:
+    """Closed form: 25 x 50 = 1250 columns in blocks of 32 take ceil(1250/32) = 40 blocks, the last
+    holding 1250 - 39 x 32 = 2."""
+    code, out, _ = _run(capsys, "layouts", "--layout", "yx/32.var.z.yx%32", "--grid", "var=4,z=137,y=25,x=50", "--format", "json")
+    row = json.loads(out)[0]
+    assert code == 0 and row["shape"] == [40, 4, 137, 32] and row["partial_tiles"] == "yx: last block holds 2 of 32"
+
+
 @pytest.mark.parametrize(
     "argv, named",
     [
@@ -49,6 +57,8 @@ def test_json_and_md(capsys: pytest.CaptureFixture[str]) -> None:
         (["layouts", "--family", "tilings", "--tiles", "3x512"], "tile size 512 exceeds"),
         (["layouts", "--family", "paddings", "--pads", "1,-2"], "-2"),
         (["layouts", "--dtype", "int8"], "int8"),
+        (["layouts", "--layout", "yx.var.z"], "'yx'"),
+        (["layouts", "--layout", "yx/64.var.z.yx%64", "--grid", "var=1,z=1,y=4,x=8"], "exceeds y * x points"),
     ],
 )
 def test_bad_input_is_one_line_exit_2(capsys: pytest.CaptureFixture[str], argv: list[str], named: str) -> None:

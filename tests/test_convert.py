@@ -19,11 +19,15 @@ from kernels.testing.strategies import extents, layouts_for
 def numpy_physical(values: np.ndarray, layout: Layout) -> np.ndarray:
     """The layout's physical array (padding left out) by NumPy alone: split each tiled axis with
     ``reshape`` (index // tile, index % tile), then ``transpose`` into the layout's token order;
-    a partial last tile's unused positions are zero (as a fresh state holds them)."""
+    a partial last tile's unused positions are zero (as a fresh state holds them). A layout blocking
+    the flattened horizontal index first reshapes (y, x) into one axis ``yx``."""
     shape, parts = [], []
-    covered = [-(-n // layout.tiles[a]) * layout.tiles[a] if a in layout.tiles else n for a, n in zip(LOGICAL_AXES, values.shape)]
+    axes = LOGICAL_AXES
+    if layout.flat_block:
+        values, axes = values.reshape(*values.shape[:2], -1), ("var", "z", "yx")
+    covered = [-(-n // layout.tiles[a]) * layout.tiles[a] if a in layout.tiles else n for a, n in zip(axes, values.shape)]
     values = np.pad(values, [(0, c - n) for c, n in zip(covered, values.shape)])  # partial tiles: unused positions hold 0
-    for axis, n in zip(LOGICAL_AXES, values.shape):
+    for axis, n in zip(axes, values.shape):
         tile = layout.tiles.get(axis)
         if tile:
             shape += [n // tile, tile]

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import assume, given, settings
 from hypothesis import strategies as st
 
 from kernels.errors import KernelError, LayoutError
@@ -66,6 +66,7 @@ def test_random_layouts_match_reference(data: st.DataObject, name: str) -> None:
     kernel = KERNELS[name]
     ext = kernel.fitted(Extents(*(data.draw(st.integers(1, 6)) for _ in range(4))))
     layout = data.draw(layouts_for(ext))
+    assume(kernel.refuses(layout) is None)
     problem = kernel.make_problem(layout, ext, "float64", seed=1)
     for schedule in kernel.schedules:
         result = kernel.validate(problem, schedule)
@@ -178,6 +179,17 @@ def test_the_native_c_stencil_example_meets_the_contract(monkeypatch: pytest.Mon
         assert np.array_equal(mine.output.to_logical(), theirs.output.to_logical())
     report = vector_report(kernel.walk, kernel.bind(kernel.make_problem("var.z.y.x", GRID), "block").args)
     assert report["packed_fp_ops"] > 0  # the disassembled library function, not the numba wrapper
+    # Blocks of the flattened horizontal index have no row-walk form: refused in one line, not run.
+    flat = kernel.make_problem("yx/5.var.z.yx%5", GRID)
+    assert "blocks the flattened horizontal index" in kernel.refuses(flat.layout)
+    with pytest.raises(KernelError, match="native stencil 'native_laplacian'"):
+        kernel.bind(flat, "block")
+    check_layouts(kernel, layouts=("yx/5.var.z.yx%5",), dtypes=("float64",))  # the contract accepts the refusal
+    from harness.suite import SuiteError, parse_suite
+
+    with pytest.raises(SuiteError, match="blocks the flattened horizontal index.*leave the layout out of layouts"):
+        parse_suite({"grid": {"sizes": ["var=2,z=4,y=8,x=8"]}, "kernels": {"select": ["native_laplacian"]},
+                     "layouts": {"specs": ["var.z.y.x", "yx/8.var.z.yx%8"]}})
 
 
 @pytest.mark.parametrize("example, numba_name, numba_schedule, schedule", [
@@ -231,14 +243,14 @@ def test_registration_refuses_reserved_and_malformed_names(bad: str, monkeypatch
         kernels.registry.register(kernel)
 
 
-@pytest.mark.parametrize("name", ["varcoef", "sharedcoef", "laplacian", "advection"])
+@pytest.mark.parametrize("name", sorted(KERNELS))
 def test_deep_columns_and_many_variables_meet_the_contract(name: str) -> None:
     """137 levels and 128 variables (a deep operational column count and a chemistry-sized tracer
-    set) on a small horizontal grid, in a variables-innermost, a columns-contiguous and a tiled
-    layout with partial tiles."""
+    set) on a small horizontal grid, in a variables-innermost, a columns-contiguous, a tiled layout
+    with partial tiles, and blocks of the flattened horizontal index with a partial last block."""
     kernel = get_kernel(name)
-    ext = Extents(var=128, z=137, y=5, x=6)
-    for spec in ("y.x.z.var", "var.y.x.z", "y/2.x/4.var.z.y%2.x%4"):
+    ext = kernel.fitted(Extents(var=128, z=137, y=5, x=6))
+    for spec in ("y.x.z.var", "var.y.x.z", "y/2.x/4.var.z.y%2.x%4", "yx/4.var.z.yx%4"):
         problem = kernel.make_problem(spec, ext, "float64")
         for schedule in kernel.schedules:
             result = kernel.validate(problem, schedule)

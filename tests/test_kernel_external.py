@@ -121,7 +121,7 @@ def test_laplacian_and_hyperdiffusion_fourier_symbols(spec: str, m: int, l: int)
         np.testing.assert_allclose(problem.output.to_logical(), factor * q, rtol=0, atol=1e-12)
 
 
-@pytest.mark.parametrize("spec", ["var.z.y.x", "x.var.z.y", "y/2.x/3.var.z.y%2.x%3"])
+@pytest.mark.parametrize("spec", ["var.z.y.x", "x.var.z.y", "y/2.x/3.var.z.y%2.x%3", "yx/7.var.z.yx%7"])
 def test_stencils_match_scipy_correlate_with_wrap(spec: str) -> None:
     """Reference: scipy.ndimage.correlate(..., mode='wrap') with the stencil weights, plane by plane.
 

@@ -110,6 +110,11 @@ BAD_SPECS = [
     ("var.z.y.x@-8", "'@-8'"),  # negative base offset
     ("", "''"),  # empty
     ("var..z.y.x", "''"),  # empty token
+    ("yx.var.z", "'yx'"),  # the flattened index unblocked
+    ("yx/8.var.z.y.yx%8", "neither y nor x"),  # flattened blocks beside y
+    ("yx/8.var.z", "'yx/8'"),  # block index without its partner
+    ("yx/8.var.z.yx%4", "'yx/8'"),  # the two parts disagree on the size
+    ("var.z/4.yx/4.z%4.yx%4", "'z/4'"),  # tiling a vertical axis, still
 ]
 
 
@@ -139,6 +144,23 @@ def test_a_tile_that_does_not_divide_its_extent_leaves_a_partial_last_tile() -> 
     v, k, j, i = 1, 2, 24, 37
     assert state.data[j // 8, i // 10, v, k, j % 8, i % 10] == values[v, k, j, i]
     assert np.all(state.data[3, :, :, :, 1:, :] == 0)  # the unused rows of the last tile stay as allocated
+
+
+def test_blocks_of_the_flattened_horizontal_index_straddle_rows() -> None:
+    """Closed form: y=5, x=6 flattened is h = 6j + i, 30 points; blocks of 8 take ceil(30/8) = 4
+    blocks, the last holding 30 - 24 = 6 points; point (j, i) sits in block h // 8 at h % 8."""
+    layout, ext = parse_layout("yx/8.var.z.yx%8"), Extents(2, 3, 5, 6)
+    assert layout.shape(ext) == (4, 2, 3, 8) and layout.flat_block == 8
+    assert layout.remainder(ext) == {"yx": 2}
+    assert layout.describe(ext, "float64")["partial_tiles"] == {"yx": "last block holds 6 of 8"}
+    values = np.random.default_rng(4).standard_normal(ext.shape)
+    state = State.from_logical(values, layout)
+    assert np.array_equal(state.to_logical(), values)
+    # Source: NumPy indexing. (v, k, j=2, i=5): h = 17, block 2, position 1 (row 2 starts mid-block).
+    assert state.data[2, 1, 2, 1] == values[1, 2, 2, 5]
+    assert np.all(state.data[3, :, :, 6:] == 0)  # the unused positions of the last block stay as allocated
+    with pytest.raises(LayoutError, match=r"tile size 31 exceeds y \* x points.*valid tile sizes are 1..30"):
+        parse_layout("yx/31.var.z.yx%31").shape(ext)
 
 
 @pytest.mark.parametrize("axis", ["var", "z", "y", "x"])

@@ -167,6 +167,11 @@ def reference_adjust(q: np.ndarray, p: np.ndarray) -> np.ndarray:
     return out
 
 
+#: Height (m) above which the input profile stops changing: the lapse rate would otherwise take
+#: the temperature below the Magnus formula's pole (-243.5 °C) on deep grids.
+LID_HEIGHT = 15000.0
+
+
 class Saturation(Kernel):
     name = "saturation"
     family = "points"
@@ -180,10 +185,12 @@ class Saturation(Kernel):
 
     def logical_inputs(self, extents: Extents, dtype: np.dtype, seed: int) -> dict[str, np.ndarray]:
         """A moist column: 25 °C at the ground cooling 6.5 K/km, pressure e-folding over 8 km,
-        humidity 70-110 % of saturation (so some points condense), a little cloud and other water."""
+        humidity 70-110 % of saturation (so some points condense), a little cloud and other water.
+        Levels above 15 km (deep grids: 137 stretched levels reach about 100 km) repeat the 15 km
+        state, where the air is still far denser than its vapour pressure (-72 °C, 153 hPa)."""
         rng = np.random.default_rng(seed)
         dz, _ = stretched_levels(extents.z)
-        height = np.cumsum(dz) - dz / 2
+        height = np.minimum(np.cumsum(dz) - dz / 2, LID_HEIGHT)
         p = 1.0e5 * np.exp(-height / 8000.0)
         shape = (extents.z, extents.y, extents.x)
         tc = 25.0 - 0.0065 * height.reshape(-1, 1, 1) + rng.normal(0.0, 1.0, shape)

@@ -21,10 +21,12 @@ from numba import prange
 from kernels.base import Kernel, Problem, Schedule
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
-from kernels.layout import TILES
+from kernels.layout import TILES, Layout
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.state import State
+from kernels.errors import KernelError
 from kernels.stencils.bands import axis_offsets, band_geometry, band_walk, has_band_form, scratch_offsets
+from kernels.stencils.planes import BAND_ROWS, plane_geometry, plane_walk
 
 NDIM = 6  # rows are walked as a 6-axis nest (axes of count 1 pad shorter layouts)
 
@@ -208,6 +210,14 @@ def row_walk(name: str, offsets: Callable[..., Any], point: Callable[..., Any], 
 #: The pieces of every row walk, by its compiled name, for building the same stencil's band walk.
 _PIECES: dict[str, tuple[str, Callable[..., Any], Callable[..., Any]]] = {}
 _BAND_WALKS: dict[str, Compiled] = {}
+_PLANE_WALKS: dict[tuple[str, bool], Compiled] = {}
+
+
+def plane_walk_of(walk: Compiled, companion: bool) -> Compiled:
+    """The plane walk with the same pieces as the row walk ``walk`` (built once, lazily)."""
+    if (walk.name, companion) not in _PLANE_WALKS:
+        _PLANE_WALKS[(walk.name, companion)] = plane_walk(*_PIECES[walk.name], companion)
+    return _PLANE_WALKS[(walk.name, companion)]
 
 
 def band_walk_of(walk: Compiled) -> Compiled:
@@ -244,6 +254,12 @@ class Stencil(Kernel):
         """Scalars the point function reads, in the state's dtype."""
         raise NotImplementedError
 
+    def refuses(self, layout: Layout) -> str | None:
+        if layout.flat_block and self.walk.native is not None:
+            return (f"native stencil '{self.name}' takes the row walk, whose neighbour offsets are a y term plus an x term; "
+                    f"layout '{layout.spec}' blocks the flattened horizontal index, where they are not")
+        return None
+
     def _walks_bands(self, problem: Problem) -> bool:
         """The band walk serves tiled layouts whose x extent holds the halo; its scratch rows wrap x
         by copying ``halo`` elements from each end, which needs x >= halo (the row walk's tables
@@ -253,15 +269,17 @@ class Stencil(Kernel):
                 and min(problem.extents.x, problem.extents.y) >= self.halo)
 
     def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
-        """The interior of a row: a full x row in the band walk's scratch, else the walked row
-        less the edge elements handled one by one."""
-        if self._walks_bands(problem):
+        """The interior of a row: a full x row in the band or plane walk's scratch, else the
+        walked row less the edge elements handled one by one."""
+        if self._walks_bands(problem) or problem.fields["q"].layout.flat_block:
             return problem.extents.x
         g = row_geometry(problem.fields["q"], self.halo, self.merge_vertical)
         return max(int(g.counts[-1]) - 2 * g.edge, 0)
 
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         fields = problem.fields
+        if fields["q"].layout.flat_block:
+            return self.plane_implementation(problem, schedule, (0, problem.extents.y, 0, problem.extents.x), self.halo, True)
         if self._walks_bands(problem):
             return self._band_implementation(problem, schedule)
         g = row_geometry(fields["q"], self.halo, self.merge_vertical)
@@ -272,6 +290,31 @@ class Stencil(Kernel):
             self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name),
         )
         return self.walk, args
+
+    def plane_implementation(self, problem: Problem, schedule: Schedule, bounds: tuple[int, int, int, int], halo: int,
+                             periodic: bool) -> tuple[Compiled, tuple[Any, ...]]:
+        """Layouts blocking the flattened horizontal index: the plane walk over bands of plain rows in
+        scratch, writing rows [bounds[0], bounds[1]) and columns [bounds[2], bounds[3])."""
+        reason = self.refuses(problem.layout)
+        if reason:
+            raise KernelError(reason)
+        q, ext, threads = problem.fields["q"], problem.extents, thread_count()
+        band = min(BAND_ROWS, bounds[1] - bounds[0])
+        g = plane_geometry(q, -(-(bounds[1] - bounds[0]) // band))
+        order = tuple(t.axis for t in q.layout.tokens if t.axis in ("var", "z"))
+        others = [st for key, st in problem.fields.items() if key != "q"]
+        w = plane_geometry(others[0], 1, order) if others else g  # type: ignore[arg-type]
+        frame = ext.x + 2 * halo
+        size = (band + 2 * halo) * frame
+        sdy, sdx = scratch_offsets(halo, frame)
+        scratch = lambda: np.zeros((threads, size), problem.dtype)  # noqa: E731
+        args = (
+            q.data.reshape(-1), problem.output.data.reshape(-1), tuple(st.data.reshape(-1) for st in others), g.counts, g.strides,
+            w.strides, g.htab, w.htab, g.block, g.step, w.step, ext.y, ext.x, band, halo, np.array(bounds, dtype=np.int64), int(periodic), sdy, sdx,
+            scratch(), scratch(), tuple(np.zeros(threads * size, problem.dtype) for _ in others), self.constants(problem.dtype),
+            threads, int(schedule.name == CYCLIC.name),
+        )
+        return plane_walk_of(self.walk, bool(others)), args
 
     def _band_implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         """Layouts ending in an x tile, y tiled: the band walk over plain rows in scratch."""

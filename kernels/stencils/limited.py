@@ -22,7 +22,7 @@ from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.stencils.bands import band_geometry, copy_band_rows, scratch_offsets
-from kernels.stencils.common import CYCLIC, Stencil, row_geometry, row_length
+from kernels.stencils.common import _PIECES, CYCLIC, Stencil, row_geometry, row_length
 
 _offsets: Callable[..., Any] | None = None
 _point: Callable[..., Any] | None = None
@@ -115,6 +115,7 @@ def limited_walk(name: str, offsets: Callable[..., Any], point: Callable[..., An
     bands.__qualname__ = bands.__name__
     bands.__module__ = _limited_bands.__module__
     _BANDS[compiled.name] = build(bands)
+    _PIECES[compiled.name] = (f"{name}_interior", offsets, point)
     return compiled
 
 
@@ -160,7 +161,7 @@ class LimitedArea(Stencil):
     def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
         """A row along var or z runs whole; a row of all of x runs its interior; a row of one
         x tile runs between the edge elements looked up one by one."""
-        if self._walks_bands(problem):
+        if self._walks_bands(problem) or problem.fields["q"].layout.flat_block:
             return problem.extents.x - 2 * self.halo
         g = row_geometry(problem.fields["q"], self.radius, self.merge_vertical)
         row = int(g.counts[-1])
@@ -172,6 +173,8 @@ class LimitedArea(Stencil):
 
     def implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         q = problem.fields["q"]
+        if q.layout.flat_block:
+            return self.plane_implementation(problem, schedule, self.interior(problem.extents), self.radius, False)
         bounds = np.array(self.interior(problem.extents), dtype=np.int64)
         if self._walks_bands(problem):
             h = self.radius

@@ -18,6 +18,7 @@ from collections.abc import Callable, Sequence
 import numpy as np
 
 from kernels.base import Kernel
+from kernels.errors import KernelError
 from kernels.grid import Extents
 from kernels.families import permutations
 
@@ -25,7 +26,8 @@ DTYPES = ("float64", "float32")
 #: Small and uneven on purpose: every axis distinct, so a transposed index shows up.
 GRID = Extents(var=3, z=5, y=4, x=6)
 #: Beyond the 24 permutations: tilings with tiles at each depth, padding of outer and inner axes,
-#: a base offset, tile indices innermost, and partial last tiles (3 and 4 divide neither 4 nor 6).
+#: a base offset, tile indices innermost, partial last tiles (3 and 4 divide neither 4 nor 6), and
+#: blocks of the flattened horizontal index that straddle rows (5 and 7 divide neither 6 nor 24).
 SPECIAL_LAYOUTS = (
     "y/2.x/3.var.z.y%2.x%3",
     "y/4.x/6.var.z.y%4.x%6+2",
@@ -35,6 +37,8 @@ SPECIAL_LAYOUTS = (
     "x/3.y/2.z.x%3+1.var.y%2+2",
     "var.y/2.z.y%2.x",
     "y/3.x/4.var.z.y%3.x%4",
+    "yx/5.var.z.yx%5",
+    "z.yx/7.var.yx%7+1",
 )
 LAYOUTS = tuple(p.spec for p in permutations()) + SPECIAL_LAYOUTS
 
@@ -105,7 +109,8 @@ def check_input_shapes_and_footprint(kernel: Kernel) -> None:
 def check_layouts(kernel: Kernel, layouts: Sequence[str] = LAYOUTS, dtypes: Sequence[str] = DTYPES,
                   extents: Extents = GRID, builds: Sequence[str] = ("parallel", "serial")) -> None:
     """Every layout, schedule and build (parallel, serial) matches the reference, and so does each
-    stage of a kernel that runs stages (first build); the empty twin runs.
+    stage of a kernel that runs stages (first build); the empty twin runs. A layout the kernel
+    ``refuses`` must fail to bind with a KernelError instead.
 
     The grid is ``extents`` with var raised to the kernel's smallest accepted value at or above it.
     """
@@ -114,6 +119,14 @@ def check_layouts(kernel: Kernel, layouts: Sequence[str] = LAYOUTS, dtypes: Sequ
     for dtype in dtypes:
         for spec in layouts:
             problem = kernel.make_problem(spec, extents, dtype, seed=3)
+            reason = kernel.refuses(problem.layout)
+            if reason:
+                try:
+                    kernel.bind(problem, kernel.schedules[0])
+                    failures.append(f"{spec}: refused ({reason}), yet it binds")
+                except KernelError:
+                    pass
+                continue
             for schedule in kernel.schedules:
                 for build in builds:
                     result = kernel.validate(problem, schedule, build)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import hypothesis.strategies as st
 
 from kernels.grid import LOGICAL_AXES, Extents
-from kernels.layout import TILES, WHOLE, WITHIN, Layout, Token
+from kernels.layout import FLAT, TILES, WHOLE, WITHIN, Layout, Token
 
 
 @st.composite
@@ -16,10 +16,17 @@ def extents(draw: st.DrawFn, max_extent: int = 9) -> Extents:
 @st.composite
 def layouts_for(draw: st.DrawFn, ext: Extents, allow_offset: bool = True) -> Layout:
     """A random valid layout for ``ext``: any order, optional tiling of y/x (any tile up to the
-    extent, so partial last tiles too), optional pads."""
+    extent, so partial last tiles too) or, one time in five, blocks of the flattened horizontal
+    index (any block size up to y * x), optional pads."""
     tokens: list[Token] = []
+    pad = lambda: draw(st.sampled_from([0, 0, 0, 1, 3]))  # noqa: E731
+    flat = draw(st.integers(0, 4)) == 0
+    if flat:
+        block = draw(st.integers(1, ext.y * ext.x))
+        tokens += [Token(FLAT, TILES, block, pad()), Token(FLAT, WITHIN, block, pad())]
     for axis in LOGICAL_AXES:
-        pad = lambda: draw(st.sampled_from([0, 0, 0, 1, 3]))  # noqa: E731
+        if flat and axis in ("y", "x"):
+            continue
         if axis in ("y", "x") and draw(st.booleans()):
             tile = draw(st.integers(1, ext[axis]))
             tokens += [Token(axis, TILES, tile, pad()), Token(axis, WITHIN, tile, pad())]
