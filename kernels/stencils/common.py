@@ -26,7 +26,7 @@ from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.state import State
 from kernels.errors import KernelError
 from kernels.stencils.bands import axis_offsets, band_geometry, band_walk, has_band_form, scratch_offsets
-from kernels.stencils.planes import BAND_ROWS, plane_geometry, plane_walk
+from kernels.stencils.planes import plane_arguments, plane_walk
 
 NDIM = 6  # rows are walked as a 6-axis nest (axes of count 1 pad shorter layouts)
 
@@ -298,23 +298,9 @@ class Stencil(Kernel):
         reason = self.refuses(problem.layout)
         if reason:
             raise KernelError(reason)
-        q, ext, threads = problem.fields["q"], problem.extents, thread_count()
-        band = min(BAND_ROWS, bounds[1] - bounds[0])
-        g = plane_geometry(q, -(-(bounds[1] - bounds[0]) // band))
-        order = tuple(t.axis for t in q.layout.tokens if t.axis in ("var", "z"))
-        others = [st for key, st in problem.fields.items() if key != "q"]
-        w = plane_geometry(others[0], 1, order) if others else g  # type: ignore[arg-type]
-        frame = ext.x + 2 * halo
-        size = (band + 2 * halo) * frame
-        sdy, sdx = scratch_offsets(halo, frame)
-        scratch = lambda: np.zeros((threads, size), problem.dtype)  # noqa: E731
-        args = (
-            q.data.reshape(-1), problem.output.data.reshape(-1), tuple(st.data.reshape(-1) for st in others), g.counts, g.strides,
-            w.strides, g.htab, w.htab, g.block, g.step, w.step, ext.y, ext.x, band, halo, np.array(bounds, dtype=np.int64), int(periodic), sdy, sdx,
-            scratch(), scratch(), tuple(np.zeros(threads * size, problem.dtype) for _ in others), self.constants(problem.dtype),
-            threads, int(schedule.name == CYCLIC.name),
-        )
-        return plane_walk_of(self.walk, bool(others)), args
+        args = plane_arguments(problem, bounds, halo, periodic, thread_count())
+        args += (self.constants(problem.dtype), thread_count(), int(schedule.name == CYCLIC.name))
+        return plane_walk_of(self.walk, len(problem.fields) > 1), args
 
     def _band_implementation(self, problem: Problem, schedule: Schedule) -> tuple[Compiled, tuple[Any, ...]]:
         """Layouts ending in an x tile, y tiled: the band walk over plain rows in scratch."""
