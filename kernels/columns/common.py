@@ -35,6 +35,14 @@ PAIRED = Schedule(
     "pairs",
     "two columns at a time, their z recurrences interleaved to hide division latency; threads split the pairs",
 )
+#: The interleaved solve's other block width: the choosing rounds pick W = 2 or 4 per layout.
+QUADS = Schedule(
+    "quads",
+    "four columns at a time, their z recurrences interleaved (block width 4); threads split the groups of four",
+)
+
+#: Columns solved together by each interleaved schedule (its block width W).
+INTERLEAVED = {"pairs": 2, "quads": 4}
 
 
 @inline
@@ -42,6 +50,13 @@ def column_at(col, inner):  # type: ignore[no-untyped-def]
     """``(outer, inner)`` indices of flat column ``col`` of an ``(outer, z, inner)`` view, unsigned."""
     o = col // inner
     return np.uintp(o), np.uintp(col - o * inner)
+
+
+@inline
+def column_offset(col, zext, inner):  # type: ignore[no-untyped-def]
+    """Flat offset of level 0 of flat column ``col`` of an ``(outer, zext, inner)`` view, unsigned."""
+    o, i = column_at(col, inner)
+    return o * np.uintp(zext) * np.uintp(inner) + i
 
 
 @inline
@@ -202,12 +217,12 @@ class ColumnSolve(Kernel):
         return column_tolerance(dtype)
 
     def vector_trip(self, problem: Problem, schedule: Schedule) -> int | None:
-        """Strips pack their inner loop across adjacent columns; column and pairs run one or two
-        recurrences along z, which leave nothing wider to pack."""
+        """Strips pack their inner loop across adjacent columns; column, pairs and quads run one,
+        two or four recurrences along z, which leave nothing wider to pack."""
         if schedule.name == "column":
             return 1
-        if schedule.name == "pairs":
-            return 2
+        if schedule.name in INTERLEAVED:
+            return INTERLEAVED[schedule.name]
         if schedule.name == "strip":
             return min(schedule.param("width", STRIP_WIDTH), self.strip_extent(problem.output))
         return None
@@ -218,7 +233,7 @@ class ColumnSolve(Kernel):
         return int(np.prod(shape[state.layout.index_of("z") + 1 :], dtype=np.int64))
 
     def thread_working_set(self, extents: Extents, dtype: Any, schedule: Schedule) -> int | None:
-        """Columns in flight (1, 2 or the strip width) x levels x (3-D inputs + output + one scratch row)."""
-        columns = {"column": 1, "pairs": 2}.get(schedule.name) or schedule.param("width", STRIP_WIDTH)
+        """Columns in flight (1, W or the strip width) x levels x (3-D inputs + output + one scratch row)."""
+        columns = {"column": 1, **INTERLEAVED}.get(schedule.name) or schedule.param("width", STRIP_WIDTH)
         fields = sum(isinstance(v, Extents) for v in self.input_shapes(extents).values()) + 2
         return columns * extents.z * fields * np.dtype(dtype).itemsize

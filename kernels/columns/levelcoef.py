@@ -12,7 +12,8 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_at, column_view, diffusion_coefficients, interface_diffusivity, right_hand_side
+from kernels.columns.common import (COLUMN, PAIRED, QUADS, STRIP, STRIP_WIDTH, ColumnSolve, column_at, column_offset, column_view,
+                                    diffusion_coefficients, interface_diffusivity, right_hand_side)
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
 from kernels.parallel import chunk, thread_count
@@ -105,14 +106,49 @@ def solve_pairs(a, b, c, d, x, nz, one, fac, nchunks):  # type: ignore[no-untype
                 fx[u], fx[v] = x0, x1
 
 
+def solve_quads(a, b, c, d, x, nz, one, fac, nchunks):  # type: ignore[no-untyped-def]
+    """``solve_pairs`` with four columns interleaved (block width 4); the last group repeats the
+    last column to make four."""
+    factorise_levels(a, b, c, nz, one, fac)
+    outer, zext, inner = d.shape[0], d.shape[1], d.shape[2]
+    fd, fx = d.reshape(-1), x.reshape(-1)
+    ncol = outer * inner
+    nquad = (ncol + 3) // 4
+    step = np.uintp(inner)
+    for t in prange(nchunks):
+        lo, hi = chunk(nquad, nchunks, t)
+        for quad in range(lo, hi):
+            last = ncol - 1
+            u0, u1 = column_offset(4 * quad, zext, inner), column_offset(min(4 * quad + 1, last), zext, inner)
+            u2, u3 = column_offset(min(4 * quad + 2, last), zext, inner), column_offset(min(4 * quad + 3, last), zext, inner)
+            r0 = fac[1, 0]
+            x0, x1, x2, x3 = fd[u0] * r0, fd[u1] * r0, fd[u2] * r0, fd[u3] * r0
+            fx[u0], fx[u1], fx[u2], fx[u3] = x0, x1, x2, x3
+            for kk in range(1, nz):
+                k = np.uintp(kk)  # unsigned: no negative-index wrap
+                u0, u1, u2, u3 = u0 + step, u1 + step, u2 + step, u3 + step
+                ak, rk = a[k], fac[1, k]
+                x0, x1 = (fd[u0] - ak * x0) * rk, (fd[u1] - ak * x1) * rk
+                x2, x3 = (fd[u2] - ak * x2) * rk, (fd[u3] - ak * x3) * rk
+                fx[u0], fx[u1], fx[u2], fx[u3] = x0, x1, x2, x3
+            for kk in range(nz - 2, -1, -1):
+                k = np.uintp(kk)
+                u0, u1, u2, u3 = u0 - step, u1 - step, u2 - step, u3 - step
+                ck = fac[0, k]
+                x0, x1, x2, x3 = fx[u0] - ck * x0, fx[u1] - ck * x1, fx[u2] - ck * x2, fx[u3] - ck * x3
+                fx[u0], fx[u1], fx[u2], fx[u3] = x0, x1, x2, x3
+
+
 COLUMNS = build(solve_columns)
 STRIPS = build(solve_strips)
 PAIRS = build(solve_pairs)
+QUADS_SOLVE = build(solve_quads)
 
 
 class LevelCoef(ColumnSolve):
     name = "levelcoef"
     summary = "tridiagonal solve per (variable, column); a, b, c per level only (1-D), d 3-D"
+    schedules = (COLUMN, STRIP, PAIRED, QUADS)
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
         return {"a": extents.z, "b": extents.z, "c": extents.z, "d": extents}
@@ -130,6 +166,8 @@ class LevelCoef(ColumnSolve):
             return COLUMNS, (*common, ext.z, dt.type(1), fac, thread_count())
         if schedule.name == "pairs":
             return PAIRS, (*common, ext.z, dt.type(1), fac, thread_count())
+        if schedule.name == "quads":
+            return QUADS_SOLVE, (*common, ext.z, dt.type(1), fac, thread_count())
         return STRIPS, (*common, ext.z, dt.type(1), fac, thread_count(), schedule.param("width", STRIP_WIDTH))
 
     def factorised_systems(self, extents: Extents) -> int:

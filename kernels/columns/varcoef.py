@@ -12,7 +12,8 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import ColumnSolve, STRIP_WIDTH, column_at, column_view, field_coefficient_inputs
+from kernels.columns.common import (COLUMN, PAIRED, QUADS, STRIP, STRIP_WIDTH, ColumnSolve, column_at, column_offset, column_view,
+                                    field_coefficient_inputs)
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, thread_count
@@ -111,14 +112,55 @@ def solve_pairs(a, b, c, d, x, nz, one, cp):  # type: ignore[no-untyped-def]
                 fx[u], fx[v] = x0, x1
 
 
+def solve_quads(a, b, c, d, x, nz, one, cp):  # type: ignore[no-untyped-def]
+    """``solve_pairs`` with four columns interleaved (block width 4); cp is (threads, 4 * nz). The
+    last group repeats the last column to make four."""
+    outer, zext, inner = a.shape[0], a.shape[1], a.shape[2]
+    fa, fb, fc, fd, fx = a.reshape(-1), b.reshape(-1), c.reshape(-1), d.reshape(-1), x.reshape(-1)
+    ncol = outer * inner
+    nquad = (ncol + 3) // 4
+    nchunks = cp.shape[0]
+    step, n = np.uintp(inner), np.uintp(nz)
+    for t in prange(nchunks):
+        lo, hi = chunk(nquad, nchunks, t)
+        ws = cp[t]
+        for quad in range(lo, hi):
+            last = ncol - 1
+            u0, u1 = column_offset(4 * quad, zext, inner), column_offset(min(4 * quad + 1, last), zext, inner)
+            u2, u3 = column_offset(min(4 * quad + 2, last), zext, inner), column_offset(min(4 * quad + 3, last), zext, inner)
+            r0, r1, r2, r3 = one / fb[u0], one / fb[u1], one / fb[u2], one / fb[u3]
+            c0, c1, c2, c3 = fc[u0] * r0, fc[u1] * r1, fc[u2] * r2, fc[u3] * r3
+            x0, x1, x2, x3 = fd[u0] * r0, fd[u1] * r1, fd[u2] * r2, fd[u3] * r3
+            ws[0], ws[n], ws[2 * n], ws[3 * n] = c0, c1, c2, c3
+            fx[u0], fx[u1], fx[u2], fx[u3] = x0, x1, x2, x3
+            for kk in range(1, nz):
+                k = np.uintp(kk)  # unsigned: no negative-index wrap
+                u0, u1, u2, u3 = u0 + step, u1 + step, u2 + step, u3 + step
+                r0, r1 = one / (fb[u0] - fa[u0] * c0), one / (fb[u1] - fa[u1] * c1)
+                r2, r3 = one / (fb[u2] - fa[u2] * c2), one / (fb[u3] - fa[u3] * c3)
+                x0, x1 = (fd[u0] - fa[u0] * x0) * r0, (fd[u1] - fa[u1] * x1) * r1
+                x2, x3 = (fd[u2] - fa[u2] * x2) * r2, (fd[u3] - fa[u3] * x3) * r3
+                c0, c1, c2, c3 = fc[u0] * r0, fc[u1] * r1, fc[u2] * r2, fc[u3] * r3
+                ws[k], ws[k + n], ws[k + 2 * n], ws[k + 3 * n] = c0, c1, c2, c3
+                fx[u0], fx[u1], fx[u2], fx[u3] = x0, x1, x2, x3
+            for kk in range(nz - 2, -1, -1):
+                k = np.uintp(kk)
+                u0, u1, u2, u3 = u0 - step, u1 - step, u2 - step, u3 - step
+                x0, x1 = fx[u0] - ws[k] * x0, fx[u1] - ws[k + n] * x1
+                x2, x3 = fx[u2] - ws[k + 2 * n] * x2, fx[u3] - ws[k + 3 * n] * x3
+                fx[u0], fx[u1], fx[u2], fx[u3] = x0, x1, x2, x3
+
+
 COLUMNS = build(solve_columns)
 STRIPS = build(solve_strips)
 PAIRS = build(solve_pairs)
+QUADS_SOLVE = build(solve_quads)
 
 
 class VarCoef(ColumnSolve):
     name = "varcoef"
     summary = "tridiagonal solve per (variable, column); a, b, c, d all 3-D fields"
+    schedules = (COLUMN, STRIP, PAIRED, QUADS)
     padding_value = {"b": 1.0}  # padded columns solve x = d = 0 instead of dividing by zero
 
     def input_shapes(self, extents: Extents) -> dict[str, Extents | int]:
@@ -134,6 +176,8 @@ class VarCoef(ColumnSolve):
             return COLUMNS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z), dt))
         if schedule.name == "pairs":
             return PAIRS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), 2 * ext.z), dt))
+        if schedule.name == "quads":
+            return QUADS_SOLVE, (*views, ext.z, dt.type(1), np.zeros((thread_count(), 4 * ext.z), dt))
         width = schedule.param("width", STRIP_WIDTH)
         return STRIPS, (*views, ext.z, dt.type(1), np.zeros((thread_count(), ext.z, width), dt))
 
