@@ -145,10 +145,13 @@ CONVERT = build(convert_rows)
 CONVERT_FLAT = build(convert_flat_rows)
 TRANSPOSE = build(transpose_blocks)
 
-#: Side of the square blocks of the blocked transpose (elements). Measured on the development VM
-#: at 4x137x96x96 float64 (1 thread): 16x128, 64x64 and 32x32 blocks within noise of each other,
-#: 8x256 and 4x96 slower.
+#: Positions of the source's contiguous run per block of the blocked transpose, and the longest
+#: destination run a block spans (elements). Measured on the development VM at 4x137x96x96
+#: float64, as a fraction of a contiguous copy in the same rounds: var.z.y.x to var.y.x.z went
+#: from 0.38 (32 x 32 blocks) to 0.59 (137 x 32: every block writes whole columns) at 1 thread,
+#: to y.x.z.var from 0.39 to 0.49 (548 x 32); 64 or 128 source positions were slower.
 TRANSPOSE_BLOCK = 32
+TRANSPOSE_RUN = 640
 
 
 def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
@@ -238,21 +241,41 @@ def _axis_strides(state: State) -> np.ndarray:
 def _transpose_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
     """The blocked transpose between two untiled layouts, outer axes in the destination's order.
 
-    A short destination-contiguous axis (shorter than a block, e.g. var innermost) is joined with
-    the next destination axis into one run, so the writes stay a block long.
+    Axes that are adjacent and contiguous in both layouts are first merged into one (``var.z.y.x``
+    to ``z.var.y.x`` copies whole y-x planes). A short destination-contiguous axis (shorter than
+    a block, e.g. var innermost) is joined with the next destination axis into one run. A block
+    spans the destination's whole contiguous run (up to ``TRANSPOSE_RUN``), so every write of a
+    block continues the previous one, by ``TRANSPOSE_BLOCK`` positions of the source's run.
     """
-    index = [LOGICAL_AXES.index(t.axis) for t in dst.layout.tokens]
-    a1, b = index[-1], LOGICAL_AXES.index(src.layout.tokens[-1].axis)
-    others = [i for i in index[:-1] if i != b]
+    n = [*src.extents.shape, 1]
+    ss, ds = [*_axis_strides(src), 0], [*_axis_strides(dst), 0]
+    src_order = [LOGICAL_AXES.index(t.axis) for t in src.layout.tokens]
+    dst_order = [LOGICAL_AXES.index(t.axis) for t in dst.layout.tokens]
+    merged = True
+    while merged:
+        merged = False
+        for p, q in zip(dst_order, dst_order[1:]):
+            i = src_order.index(p)
+            if i + 1 < len(src_order) and src_order[i + 1] == q and ss[p] == ss[q] * n[q] and ds[p] == ds[q] * n[q]:
+                n[p], ss[p], ds[p] = n[p] * n[q], ss[q], ds[q]
+                n[q], ss[q], ds[q] = 1, 0, 0
+                src_order.remove(q)
+                dst_order.remove(q)
+                merged = True
+                break
+    a1, b = dst_order[-1], src_order[-1]
+    others = [i for i in dst_order[:-1] if i != b]
     same, a2 = a1 == b, 4
     if same:  # the innermost outer axis of dst takes the role of b
-        b = others.pop()
-    elif src.extents.shape[a1] < TRANSPOSE_BLOCK and index[-2] != b:
+        b = others.pop() if others else 4
+    elif n[a1] < TRANSPOSE_BLOCK and len(dst_order) > 1 and dst_order[-2] != b:
         a2 = others.pop()
-    others = [4] * (2 - len(others)) + others
-    n = np.array((*src.extents.shape, 1), dtype=np.int64)
-    strides = lambda st: np.append(_axis_strides(st), 0)  # noqa: E731
-    buf = np.zeros((thread_count(), TRANSPOSE_BLOCK, TRANSPOSE_BLOCK), src.dtype)
+    spare = [i for i in range(5) if i not in (a1, a2, b, *others)]
+    others = spare[: 2 - len(others)] + others
+    # A short source run (var innermost) reads little per row however long the block: keep it square.
+    run = min(max(n[a1] * n[a2], TRANSPOSE_BLOCK), TRANSPOSE_RUN) if n[b] >= TRANSPOSE_BLOCK else TRANSPOSE_BLOCK
+    buf = np.zeros((thread_count(), run, TRANSPOSE_BLOCK), src.dtype)
     axes = np.array((a1, a2, b, *others), dtype=np.int64)
-    args = (src.data.reshape(-1), dst.data.reshape(-1), n, strides(src), strides(dst), axes, same, buf, thread_count())
+    as_i64 = lambda v: np.array(v, dtype=np.int64)  # noqa: E731
+    args = (src.data.reshape(-1), dst.data.reshape(-1), as_i64(n), as_i64(ss), as_i64(ds), axes, same, buf, thread_count())
     return TRANSPOSE, args
