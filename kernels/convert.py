@@ -20,11 +20,13 @@ from kernels.state import State
 NDIM = 6
 
 
-def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_axis, extents, nchunks):  # type: ignore[no-untyped-def]
+def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_axis, unit, extents, nchunks):  # type: ignore[no-untyped-def]
     """dst axes: counts/strides (6); mulA[d]: step of logical axis A (var, z, y, x) per index of dst axis d;
     tables[a, n]: source element offset of logical index n along axis a (padded with zeros);
-    row_axis: the logical axis that dst's innermost axis runs along; extents: the logical extents
-    (rows and row ends in the unused part of a partial last tile are skipped)."""
+    row_axis: the logical axis that dst's innermost axis runs along; unit: the source's element
+    stride along it when the source holds that axis whole (offsets linear in the index), else 0;
+    extents: the logical extents (rows and row ends in the unused part of a partial last tile are
+    skipped)."""
     n4, n5 = counts[4], counts[5]
     step = (mul0[5], mul1[5], mul2[5], mul3[5])[row_axis]
     nitems = counts[0] * counts[1] * counts[2] * counts[3]
@@ -44,9 +46,16 @@ def convert_rows(src, dst, counts, strides, mul0, mul1, mul2, mul3, tables, row_
                 start = a0 if row_axis == 0 else a1 if row_axis == 1 else a2 if row_axis == 2 else a3
                 others = total - tables[row_axis, start]  # only the row's own axis moves along the row
                 nrow = min(n5, (extents[row_axis] - start + step - 1) // step)
-                for i5 in range(nrow):
-                    s = others + tables[row_axis, start + i5 * step]
-                    dst[np.uintp(rb + i5)] = src[np.uintp(s)]
+                if unit * step == 1:  # both contiguous along the row: a plain copy (SIMD)
+                    for i5 in range(nrow):
+                        dst[np.uintp(rb + i5)] = src[np.uintp(total + i5)]
+                elif unit > 0:
+                    for i5 in range(nrow):
+                        dst[np.uintp(rb + i5)] = src[np.uintp(total + i5 * step * unit)]
+                else:
+                    for i5 in range(nrow):
+                        s = others + tables[row_axis, start + i5 * step]
+                        dst[np.uintp(rb + i5)] = src[np.uintp(s)]
 
 
 def convert_flat_rows(src, dst, counts, strides, mul, tv, tz, th, row_coord, extents, nchunks):  # type: ignore[no-untyped-def]
@@ -90,20 +99,22 @@ def convert_flat_rows(src, dst, counts, strides, mul, tv, tz, th, row_coord, ext
 
 def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ignore[no-untyped-def]
     """Copy between two untiled layouts. n, ss, ds: logical extents and element strides (src, dst)
-    of the axes var, z, y, x and a fifth of extent 1; axes = (a1, a2, b, c, e): the destination's
-    contiguous axis a1 and the one outside it, a2 (the fifth axis when a1 alone fills a block), the
-    source's contiguous axis b, and the rest in the destination's order. A block holds up to bs
-    positions of (a2, a1) by bs of b: read along b into per-thread scratch buf (threads, bs, bs),
-    written along a1. ``same``: both are contiguous along a1, and b is an outer axis: each item
-    copies one whole run."""
-    a1, a2, b, c, e = axes[0], axes[1], axes[2], axes[3], axes[4]
-    nb = n[b]
+    of the axes var, z, y, x and two more of extent 1; axes = (a1, a2, b1, b2, c, e): the
+    destination's contiguous axis a1 and the one outside it, a2 (an axis of extent 1 when a1 alone
+    fills a block), likewise the source's b1 and b2, and the rest in the destination's order. A
+    block holds up to bs positions of (a2, a1) by bsb of (b2, b1): read along b1 (contiguous in
+    src) into per-thread scratch buf (threads, bs, bsb), written along a1. ``same``: both are
+    contiguous along a1, and b1 is an outer axis: each item copies one whole run."""
+    a1, a2, b1, b2, c, e = axes[0], axes[1], axes[2], axes[3], axes[4], axes[5]
     bs, bsb = buf.shape[1], buf.shape[2]
     k1 = min(bs, n[a1])  # block of a is k2 x k1 (a2 by a1), at most bs positions
     k2 = max(1, bs // k1)
+    j1 = min(bsb, n[b1])  # block of b is j2 x j1 (b2 by b1), at most bsb positions
+    j2 = max(1, bsb // j1)
     nb1, nb2 = (n[a1] + k1 - 1) // k1, (n[a2] + k2 - 1) // k2
+    mb1, mb2 = (n[b1] + j1 - 1) // j1, (n[b2] + j2 - 1) // j2
     nba = 1 if same else nb1 * nb2
-    nbb = nb if same else (nb + bsb - 1) // bsb
+    nbb = n[b1] if same else mb1 * mb2
     nitems = n[c] * n[e] * nba * nbb
     u = np.uintp
     for t in prange(nchunks):
@@ -117,28 +128,31 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
             ic = r // n[e]
             sbase, dbase = ic * ss[c] + ie * ss[e], ic * ds[c] + ie * ds[e]
             if same:
-                s0, d0 = sbase + blk_b * ss[b], dbase + blk_b * ds[b]
+                s0, d0 = sbase + blk_b * ss[b1], dbase + blk_b * ds[b1]
                 for ia in range(n[a1]):
                     dst[u(d0 + ia)] = src[u(s0 + ia)]
                 continue
-            lo1 = (blk_a % nb1) * k1
-            lo2 = (blk_a // nb1) * k2
+            lo1, lo2 = (blk_a % nb1) * k1, (blk_a // nb1) * k2
             hi1, hi2 = min(lo1 + k1, n[a1]), min(lo2 + k2, n[a2])
-            lo_b, hi_b = blk_b * bsb, min(blk_b * bsb + bsb, nb)
-            for i2 in range(lo2, hi2):  # read rows along b (contiguous in src)
+            lb1, lb2 = (blk_b % mb1) * j1, (blk_b // mb1) * j2
+            hb1, hb2 = min(lb1 + j1, n[b1]), min(lb2 + j2, n[b2])
+            for i2 in range(lo2, hi2):  # read rows along b1 (contiguous in src)
                 for i1 in range(lo1, hi1):
                     row = u((i2 - lo2) * k1 + i1 - lo1)
                     s0 = sbase + i2 * ss[a2] + i1 * ss[a1]
-                    for ib in range(lo_b, hi_b):
-                        buf[t, row, u(ib - lo_b)] = src[u(s0 + ib)]
-            for ib in range(lo_b, hi_b):  # write runs along a1 (contiguous in dst)
-                col = u(ib - lo_b)
-                d0 = dbase + ib * ds[b]
-                for i2 in range(lo2, hi2):
-                    d2 = d0 + i2 * ds[a2]
-                    r0 = (i2 - lo2) * k1 - lo1
-                    for i1 in range(lo1, hi1):
-                        dst[u(d2 + i1)] = buf[t, u(r0 + i1), col]
+                    for g2 in range(lb2, hb2):
+                        s2, c0 = s0 + g2 * ss[b2], (g2 - lb2) * j1 - lb1
+                        for g1 in range(lb1, hb1):
+                            buf[t, row, u(c0 + g1)] = src[u(s2 + g1)]
+            for g2 in range(lb2, hb2):  # write runs along a1 (contiguous in dst)
+                for g1 in range(lb1, hb1):
+                    col = u((g2 - lb2) * j1 + g1 - lb1)
+                    d0 = dbase + g2 * ds[b2] + g1 * ds[b1]
+                    for i2 in range(lo2, hi2):
+                        d2 = d0 + i2 * ds[a2]
+                        r0 = (i2 - lo2) * k1 - lo1
+                        for i1 in range(lo1, hi1):
+                            dst[u(d2 + i1)] = buf[t, u(r0 + i1), col]
 
 
 CONVERT = build(convert_rows)
@@ -149,7 +163,9 @@ TRANSPOSE = build(transpose_blocks)
 #: destination run a block spans (elements). Measured on the development VM at 4x137x96x96
 #: float64, as a fraction of a contiguous copy in the same rounds: var.z.y.x to var.y.x.z went
 #: from 0.38 (32 x 32 blocks) to 0.59 (137 x 32: every block writes whole columns) at 1 thread,
-#: to y.x.z.var from 0.39 to 0.49 (548 x 32); 64 or 128 source positions were slower.
+#: to y.x.z.var from 0.39 to 0.49 (548 x 32); 64 or 128 source positions were slower. Joining a
+#: short source run (var innermost) with the next source axis took y.x.z.var to var.z.y.x from
+#: 0.25 to 0.38 and var.y.x.z to y.x.z.var from 0.50 to 0.94.
 TRANSPOSE_BLOCK = 32
 TRANSPOSE_RUN = 640
 
@@ -227,8 +243,10 @@ def row_conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ..
             if tok.axis == axis:
                 tables[k, : idx.size] += tok.logical_index(idx) * src_elem[pos]
     row_axis = LOGICAL_AXES.index(dst.layout.tokens[-1].axis)
+    row_name = LOGICAL_AXES[row_axis]
+    unit = src_elem[src.layout.index_of(row_name)] if row_name not in src.layout.tiles else 0
     extents = np.array(src.extents.shape, dtype=np.int64)
-    args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, *mul, tables, row_axis, extents, thread_count())
+    args = (src.data.reshape(-1), dst.data.reshape(-1), counts, strides, *mul, tables, row_axis, unit, extents, thread_count())
     return CONVERT, args
 
 
@@ -242,13 +260,13 @@ def _transpose_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
     """The blocked transpose between two untiled layouts, outer axes in the destination's order.
 
     Axes that are adjacent and contiguous in both layouts are first merged into one (``var.z.y.x``
-    to ``z.var.y.x`` copies whole y-x planes). A short destination-contiguous axis (shorter than
-    a block, e.g. var innermost) is joined with the next destination axis into one run. A block
-    spans the destination's whole contiguous run (up to ``TRANSPOSE_RUN``), so every write of a
-    block continues the previous one, by ``TRANSPOSE_BLOCK`` positions of the source's run.
+    to ``z.var.y.x`` copies whole y-x planes). A short contiguous axis (shorter than a block, e.g.
+    var innermost) is joined with the next axis of its layout into one run, on either side. A
+    block spans the destination's whole contiguous run (up to ``TRANSPOSE_RUN``) when the
+    source's run is long, so every write of a block continues the previous one.
     """
-    n = [*src.extents.shape, 1]
-    ss, ds = [*_axis_strides(src), 0], [*_axis_strides(dst), 0]
+    n = [*src.extents.shape, 1, 1]
+    ss, ds = [*_axis_strides(src), 0, 0], [*_axis_strides(dst), 0, 0]
     src_order = [LOGICAL_AXES.index(t.axis) for t in src.layout.tokens]
     dst_order = [LOGICAL_AXES.index(t.axis) for t in dst.layout.tokens]
     merged = True
@@ -263,19 +281,27 @@ def _transpose_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
                 dst_order.remove(q)
                 merged = True
                 break
-    a1, b = dst_order[-1], src_order[-1]
-    others = [i for i in dst_order[:-1] if i != b]
-    same, a2 = a1 == b, 4
-    if same:  # the innermost outer axis of dst takes the role of b
-        b = others.pop() if others else 4
-    elif n[a1] < TRANSPOSE_BLOCK and len(dst_order) > 1 and dst_order[-2] != b:
-        a2 = others.pop()
-    spare = [i for i in range(5) if i not in (a1, a2, b, *others)]
+    spare = [i for i in range(6) if i not in dst_order]  # axes of extent 1
+    a1, b1 = dst_order[-1], src_order[-1]
+    a2 = b2 = -1
+    others = [i for i in dst_order[:-1] if i != b1]
+    same = a1 == b1
+    if same:  # the innermost outer axis of dst takes the role of b1
+        b1 = others.pop() if others else spare.pop()
+    else:
+        if n[a1] < TRANSPOSE_BLOCK and len(dst_order) > 1 and dst_order[-2] != b1:
+            a2 = dst_order[-2]
+            others.remove(a2)
+        if n[b1] < TRANSPOSE_BLOCK and len(src_order) > 1 and src_order[-2] not in (a1, a2):
+            b2 = src_order[-2]
+            others.remove(b2)
+    a2 = a2 if a2 >= 0 else spare.pop()
+    b2 = b2 if b2 >= 0 else spare.pop()
     others = spare[: 2 - len(others)] + others
-    # A short source run (var innermost) reads little per row however long the block: keep it square.
-    run = min(max(n[a1] * n[a2], TRANSPOSE_BLOCK), TRANSPOSE_RUN) if n[b] >= TRANSPOSE_BLOCK else TRANSPOSE_BLOCK
+    long_source = n[b1] * n[b2] >= TRANSPOSE_BLOCK
+    run = min(max(n[a1] * n[a2], TRANSPOSE_BLOCK), TRANSPOSE_RUN) if long_source else TRANSPOSE_BLOCK
     buf = np.zeros((thread_count(), run, TRANSPOSE_BLOCK), src.dtype)
-    axes = np.array((a1, a2, b, *others), dtype=np.int64)
+    axes = np.array((a1, a2, b1, b2, *others), dtype=np.int64)
     as_i64 = lambda v: np.array(v, dtype=np.int64)  # noqa: E731
     args = (src.data.reshape(-1), dst.data.reshape(-1), as_i64(n), as_i64(ss), as_i64(ds), axes, same, buf, thread_count())
     return TRANSPOSE, args
