@@ -462,7 +462,7 @@ def test_strip_widths_to_try_are_schedule_variants_chosen_per_layout(tmp_path: P
     path = _suite(tmp_path, '["levelcoef"]', repeats=6, extra=extra)
     suite = load_suite(str(path))
     (group,) = plan(suite, (1,))
-    assert {c.schedule for c in group.cases} == {"column", "pairs", "strip@4", "strip@64"}
+    assert {c.schedule for c in group.cases} == {"column", "pairs", "quads", "strip@4", "strip@64"}
     kernel = get_kernel("levelcoef")
     assert dict(schedule_with_options(kernel, "strip@4", dict(suite.kernel_options)).params)["width"] == 4
     assert schedule_with_options(kernel, "strip@4", {}).name == "strip"  # the kernel sees its own schedule
