@@ -71,11 +71,14 @@ def test_mismatched_states_are_refused() -> None:
 
 @pytest.mark.parametrize(
     "pair",
-    [("var.z.y.x", "y.x.z.var"), ("var.z.y.x", "var.y.x.z"), ("y.x.z.var", "var.z.y+1.x+8"), ("var.z.y.x", "z.var.y.x"), ("x.y.z.var", "var+1.z.y.x")],
+    [("var.z.y.x", "y.x.z.var"), ("var.z.y.x", "var.y.x.z"), ("y.x.z.var", "var.z.y+1.x+8"), ("var.z.y.x", "z.var.y.x"), ("x.y.z.var", "var+1.z.y.x"),
+     ("y.x.z.var", "var.z.y.x"), ("y.x.z.var", "y.x.var.z"), ("var.y.x.z", "y.x.z.var"), ("z.var.y.x", "var.z.y+1.x")],
 )
 def test_blocked_transpose_spans_several_blocks(pair: tuple[str, str]) -> None:
     """Untiled pairs take the blocked transpose; extents above its block size exercise whole,
-    partial and same-axis blocks.
+    partial and same-axis blocks, axes merged because both layouts hold them contiguous (y.x in
+    var.z.y.x and z.var.y.x), and a short source run joined with the next source axis (var.z in
+    y.x.z.var).
 
     Source: NumPy's reshape and transpose build the expected physical array, bit for bit."""
     from kernels.convert import TRANSPOSE, TRANSPOSE_BLOCK
