@@ -231,12 +231,7 @@ def _flat_conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, 
     mul = np.array([[a[2][c] for a in axes] for c in range(5)], dtype=np.int64)
     src_elem = [s // src.data.itemsize for s in src.data.strides]
     tv, tz = (np.arange(ext[a], dtype=np.int64) * src_elem[src.layout.index_of(a)] for a in ("var", "z"))
-    h = np.arange(ext.y * nx, dtype=np.int64)
-    coords = {"y": h // nx, "x": h % nx, "yx": h}
-    th = np.zeros(h.size, dtype=np.int64)
-    for pos, tok in enumerate(src.layout.tokens):
-        if tok.axis in coords:
-            th += tok.logical_index(coords[tok.axis]).astype(np.int64) * src_elem[pos]
+    th = src.horizontal_offsets()
     last = dst.layout.tokens[-1].axis
     row_coord = LOGICAL_AXES.index(last) if last in ("var", "z") else 4
     extents = np.array((*ext.shape, ext.y * nx), dtype=np.int64)

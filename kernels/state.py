@@ -105,6 +105,18 @@ class State:
                 i += 1
         return [pos[(t.axis, t.part)] for t in self.layout.tokens]
 
+    def horizontal_offsets(self) -> np.ndarray:
+        """Element offset contributed by each flattened horizontal index ``y * nx + x`` (from the
+        y and x tokens, or from the ``yx`` blocks), as int64."""
+        nx = self.extents.x
+        h = np.arange(self.extents.y * nx, dtype=np.int64)
+        coords = {"y": h // nx, "x": h % nx, FLAT: h}
+        out = np.zeros(h.size, dtype=np.int64)
+        for tok, stride in zip(self.layout.tokens, self.data.strides):
+            if tok.axis in coords:
+                out += tok.logical_index(coords[tok.axis]).astype(np.int64) * (stride // self.data.itemsize)
+        return out
+
     def interior(self) -> np.ndarray:
         """The physical array without padding (a strided view)."""
         counts = self.layout.counts(self.extents)

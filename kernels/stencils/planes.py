@@ -72,14 +72,9 @@ def plane_geometry(state: State, bands: int, chunk_planes: int, axes: tuple[str,
     n_inner = ext[inner]
     counts = [1, ext[outer], -(-n_inner // chunk_planes), bands]
     strides = [0, stride[outer], stride[inner] * chunk_planes, 0]
-    h = np.arange(ext.y * ext.x, dtype=np.int64)
-    htab = np.zeros(h.size, dtype=np.int64)
-    for pos, tok in enumerate(layout.tokens):
-        if tok.axis == FLAT:
-            htab += tok.logical_index(h) * elem[pos]
     pos = layout.index_of(FLAT, WITHIN)
-    return PlaneGeometry(np.array(counts, dtype=np.int64), np.array(strides, dtype=np.int64), stride[inner], n_inner, htab,
-                         layout.tokens[pos].tile, elem[pos])
+    return PlaneGeometry(np.array(counts, dtype=np.int64), np.array(strides, dtype=np.int64), stride[inner], n_inner,
+                         state.horizontal_offsets(), layout.tokens[pos].tile, elem[pos])
 
 
 @inline
