@@ -86,15 +86,34 @@ def test_blocked_transpose_spans_several_blocks(pair: tuple[str, str]) -> None:
 
     Source: NumPy's reshape and transpose build the expected physical array, bit for bit."""
     from kernels.convert import TRANSPOSE, TRANSPOSE_BLOCK
-    from kernels.notation import parse_layout
 
     ext = Extents(var=3, z=5, y=TRANSPOSE_BLOCK + 7, x=2 * TRANSPOSE_BLOCK + 3)
-    values = np.random.default_rng(1).standard_normal(ext.shape)
+    _check_compiled_copy(np.random.default_rng(1).standard_normal(ext.shape), pair, TRANSPOSE)
+
+
+def _check_compiled_copy(values: np.ndarray, pair: tuple[str, str], expected_impl: object) -> None:
+    """Convert ``values`` from pair[0] to pair[1] with the compiled copy ``expected_impl`` and
+    compare the destination bit for bit with NumPy's physical array."""
+    from kernels.notation import parse_layout
+
     src = State.from_logical(values, parse_layout(pair[0]))
-    dst = State.zeros(parse_layout(pair[1]), ext, "float64")
+    dst = State.zeros(parse_layout(pair[1]), src.extents, values.dtype.name)
     impl, args = conversion_args(src, dst)
-    assert impl is TRANSPOSE
+    assert impl is expected_impl
     impl.parallel(*args)
     expected = np.ascontiguousarray(numpy_physical(values, dst.layout))
-    interior = tuple(slice(0, n) for n in dst.layout.counts(ext))
+    interior = tuple(slice(0, n) for n in dst.layout.counts(src.extents))
     assert np.array_equal(dst.data[interior], expected)
+
+
+@pytest.mark.parametrize("pair", [("var.z.y.x", "var.y.x.z"), ("z.var.y.x", "y.x.z.var"), ("var.z.y+1.x", "y.x.var.z")])
+@pytest.mark.parametrize("dtype", ["float64", "float32"])
+def test_transpose_with_prefetch_copies_exactly(pair: tuple[str, str], dtype: str) -> None:
+    """Blocks of many source rows a page or more apart take the prefetching copy of the transpose
+    (rows at least 16, row stride at least 4 KiB); it must copy exactly like the other.
+
+    Source: NumPy's reshape and transpose build the expected physical array, bit for bit."""
+    from kernels.convert import TRANSPOSE_AHEAD
+
+    ext = Extents(var=2, z=20, y=33, x=37)  # a y-x plane of 1221 values: 4.8 KiB in float32
+    _check_compiled_copy(np.random.default_rng(2).standard_normal(ext.shape).astype(dtype), pair, TRANSPOSE_AHEAD)
