@@ -128,7 +128,7 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
 
     from harness.timing import overhead_ns
     from kernels.base import Bound
-    from kernels.convert import conversion_args
+    from kernels.conversion_plan import candidates, plan_conversion
     from kernels.grid import Extents
     from kernels.parallel import first_touch
     from kernels.state import State
@@ -145,9 +145,12 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
             src.assign_logical(logical)
             dst = State.zeros(dst_spec, extents, group.dtype, toucher)
             rec["footprint_bytes"] = src.data.nbytes + dst.data.nbytes
-            impl, args = conversion_args(src, dst)
+            for impl, args in {id(c[1]): c[1:] for c in candidates(src, dst)}.values():
+                _add_compile(rec, out.compile(getattr(impl, case.build), args))
+            plan = plan_conversion(src, dst, case.build)  # each candidate block width, run untimed
+            impl, args, rec["message"] = plan.impl, plan.args, plan.describe()
             dispatcher = getattr(impl, case.build)
-            rec.update(out.compile(dispatcher, args))
+            dst.data[...] = 0  # the chosen conversion alone must fill it
             dispatcher(*args)
             if not np.array_equal(dst.to_logical(), logical):
                 rec.update(status="failed", message="conversion is not bit-exact")
@@ -158,6 +161,14 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
             out.calls[case.id] = Bound(dispatcher, args)
         except Exception as exc:  # noqa: BLE001 - recorded as the case's error
             rec.update(status="error", message=f"{type(exc).__name__}: {exc}")
+
+
+def _add_compile(rec: dict[str, Any], info: dict[str, Any]) -> None:
+    """Sum the compile records of a case built from several specialisations."""
+    if info:
+        rec["compile_s"] = (rec["compile_s"] or 0.0) + info["compile_s"]
+        cached = rec["loaded_from_cache"]
+        rec["loaded_from_cache"] = info["loaded_from_cache"] if cached is None else cached and info["loaded_from_cache"]
 
 
 def prepare_probes(group: Group, ctx: Context, out: Prepared) -> None:

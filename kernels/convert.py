@@ -20,6 +20,8 @@ from kernels.prefetch import prefetch
 from kernels.state import State
 
 NDIM = 6
+#: Bytes of an item the transpose copies straight across, without its scratch (see there).
+SMALL_ITEM_BYTES = 32768
 #: Bound per compiled copy of ``transpose_blocks``: whether its read loop asks for each source
 #: row's continuation ahead of time (a constant, so the other copy compiles no such code).
 _ahead = False
@@ -114,13 +116,15 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
     the next block reads."""
     a1, a2, b1, b2, c, e = axes[0], axes[1], axes[2], axes[3], axes[4], axes[5]
     bs, bsb = buf.shape[1], buf.shape[2]
-    # An item whose whole (a, b) square holds at most 512 values (4 KiB in float64), packed
-    # together in the source, is a transposition within L1: one block, copied straight across
-    # without the scratch. (Rows far apart in the source still go through the scratch: measured
-    # faster, var.y.x.z to y.x.z.var 0.94 against 0.54 of a copy.)
+    # An item whose whole (a, b) square holds at most SMALL_ITEM_BYTES, packed together in the
+    # source, is a transposition within L1/L2: one block, copied straight across without the
+    # scratch. Measured at 4x137x96x96 float64, 1 thread, fraction of a copy: y.x.z.var to
+    # y.x.var.z (548 values per item) 0.36 -> 0.77 when the limit went from 4 to 32 KiB; at
+    # 128 variables (140 KiB per item) straight across ran half as fast as the scratch. (Rows
+    # far apart in the source still go through the scratch: measured faster.)
     count = n[a1] * n[a2] * n[b1] * n[b2]
     span = (n[a1] - 1) * ss[a1] + (n[a2] - 1) * ss[a2] + (n[b1] - 1) * ss[b1] + (n[b2] - 1) * ss[b2] + 1
-    small = not same and count <= 512 and span <= 2 * count
+    small = not same and count * src.itemsize <= SMALL_ITEM_BYTES and span <= 2 * count
     if small:
         bs, bsb = n[a1] * n[a2], n[b1] * n[b2]
     k1 = min(bs, n[a1])  # block of a is k2 x k1 (a2 by a1), at most bs positions
@@ -222,14 +226,15 @@ TRANSPOSE_RUN = 640
 PREFETCH_ROWS = 16
 
 
-def conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
-    """The compiled conversion and its arguments for copying ``src`` into ``dst``."""
+def conversion_args(src: State, dst: State, width: int = TRANSPOSE_BLOCK) -> tuple[Compiled, tuple[Any, ...]]:
+    """The compiled conversion and its arguments for copying ``src`` into ``dst``; ``width``: the
+    blocked transpose's block width (positions of the source's contiguous run per block)."""
     if src.extents != dst.extents or src.dtype != dst.dtype:
         from kernels.errors import KernelError
 
         raise KernelError(f"cannot convert {src} into {dst}: extents and dtype must match")
     if not (src.layout.is_tiled or dst.layout.is_tiled):
-        return _transpose_args(src, dst)
+        return _transpose_args(src, dst, width)
     if src.layout.flat_block or dst.layout.flat_block:
         return _flat_conversion_args(src, dst)
     return row_conversion_args(src, dst)
@@ -303,7 +308,7 @@ def _axis_strides(state: State) -> np.ndarray:
     return np.array([elem[state.layout.index_of(axis)] for axis in LOGICAL_AXES], dtype=np.int64)
 
 
-def _transpose_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
+def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple[Any, ...]]:
     """The blocked transpose between two untiled layouts, outer axes in the destination's order.
 
     Axes that are adjacent and contiguous in both layouts are first merged into one (``var.z.y.x``
@@ -336,22 +341,22 @@ def _transpose_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]]:
     if same:  # the innermost outer axis of dst takes the role of b1
         b1 = others.pop() if others else spare.pop()
     else:
-        if n[a1] < TRANSPOSE_BLOCK and len(dst_order) > 1 and dst_order[-2] != b1:
+        if n[a1] < width and len(dst_order) > 1 and dst_order[-2] != b1:
             a2 = dst_order[-2]
             others.remove(a2)
-        if n[b1] < TRANSPOSE_BLOCK and len(src_order) > 1 and src_order[-2] not in (a1, a2):
+        if n[b1] < width and len(src_order) > 1 and src_order[-2] not in (a1, a2):
             b2 = src_order[-2]
             others.remove(b2)
     a2 = a2 if a2 >= 0 else spare.pop()
     b2 = b2 if b2 >= 0 else spare.pop()
     others = spare[: 2 - len(others)] + others
-    long_source = n[b1] * n[b2] >= TRANSPOSE_BLOCK
-    run = min(max(n[a1] * n[a2], TRANSPOSE_BLOCK), TRANSPOSE_RUN) if long_source else TRANSPOSE_BLOCK
-    buf = np.zeros((thread_count(), run, TRANSPOSE_BLOCK), src.dtype)
+    long_source = n[b1] * n[b2] >= width
+    run = min(max(n[a1] * n[a2], width), TRANSPOSE_RUN) if long_source else width
+    buf = np.zeros((thread_count(), run, width), src.dtype)
     axes = np.array((a1, a2, b1, b2, *others), dtype=np.int64)
     as_i64 = lambda v: np.array(v, dtype=np.int64)  # noqa: E731
     args = (src.data.reshape(-1), dst.data.reshape(-1), as_i64(n), as_i64(ss), as_i64(ds), axes, same, buf, thread_count())
     k1 = min(run, n[a1])
     rows = k1 * min(max(1, run // k1), n[a2])
-    ahead = not same and rows >= PREFETCH_ROWS and n[b1] > TRANSPOSE_BLOCK and ss[a1] * src.dtype.itemsize >= 4096
+    ahead = not same and rows >= PREFETCH_ROWS and n[b1] > width and ss[a1] * src.dtype.itemsize >= 4096
     return (TRANSPOSE_AHEAD if ahead else TRANSPOSE), args

@@ -117,3 +117,30 @@ def test_transpose_with_prefetch_copies_exactly(pair: tuple[str, str], dtype: st
 
     ext = Extents(var=2, z=20, y=33, x=37)  # a y-x plane of 1221 values: 4.8 KiB in float32
     _check_compiled_copy(np.random.default_rng(2).standard_normal(ext.shape).astype(dtype), pair, TRANSPOSE_AHEAD)
+
+
+def test_planning_keeps_the_fastest_width_and_converts_exactly() -> None:
+    """Every candidate block width is run; the plan keeps the one with the smallest planning
+    median, and its conversion alone fills the destination bit for bit.
+
+    Source: NumPy's reshape and transpose build the expected physical array."""
+    from kernels.conversion_plan import TRANSPOSE_WIDTHS, plan_conversion
+
+    ext = Extents(var=3, z=9, y=20, x=24)
+    values = np.random.default_rng(3).standard_normal(ext.shape)
+    src, dst = State.from_logical(values, "y.x.z.var"), State.zeros("var.z.y.x", ext)
+    plan = plan_conversion(src, dst)
+    assert set(plan.medians_ns) == set(TRANSPOSE_WIDTHS)
+    assert plan.medians_ns[plan.width] == min(plan.medians_ns.values())
+    assert plan.describe().startswith(f"block width {plan.width} (planning runs")
+    dst.data[...] = 0
+    plan.impl.parallel(*plan.args)
+    assert np.array_equal(dst.data, np.ascontiguousarray(numpy_physical(values, dst.layout)))
+
+
+def test_tiled_pairs_have_no_width_to_plan() -> None:
+    from kernels.conversion_plan import plan_conversion
+
+    ext = Extents(var=2, z=3, y=8, x=8)
+    plan = plan_conversion(State.zeros("var.z.y.x", ext), State.zeros("y/4.x/4.var.z.y%4.x%4", ext))
+    assert plan.width is None and plan.medians_ns == {} and plan.describe() == ""
