@@ -128,7 +128,7 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
 
     from harness.timing import overhead_ns
     from kernels.base import Bound
-    from kernels.conversion_plan import candidates, plan_conversion
+    from kernels.conversion_plan import candidates, is_compiled, plan_conversion
     from kernels.grid import Extents
     from kernels.parallel import first_touch
     from kernels.state import State
@@ -145,9 +145,9 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
             src.assign_logical(logical)
             dst = State.zeros(dst_spec, extents, group.dtype, toucher)
             rec["footprint_bytes"] = src.data.nbytes + dst.data.nbytes
-            for impl, args in {id(c[1]): c[1:] for c in candidates(src, dst)}.values():
+            for impl, args in {id(c[1]): c[1:] for c in candidates(src, dst) if is_compiled(c[1])}.values():
                 _add_compile(rec, out.compile(getattr(impl, case.build), args))
-            plan = plan_conversion(src, dst, case.build)  # each candidate block width, run untimed
+            plan = plan_conversion(src, dst, case.build)  # each candidate run untimed; the fastest kept
             impl, args, rec["message"] = plan.impl, plan.args, plan.describe()
             dispatcher = getattr(impl, case.build)
             dst.data[...] = 0  # the chosen conversion alone must fill it
@@ -156,7 +156,8 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
                 rec.update(status="failed", message="conversion is not bit-exact")
                 continue
             rec.update(status="ok", max_rel_error=0.0, tolerance=0.0)
-            out.compile(impl.empty, args)
+            if is_compiled(impl):
+                out.compile(impl.empty, args)
             rec["overhead_ns"] = overhead_ns(lambda: impl.empty(*args))
             out.calls[case.id] = Bound(dispatcher, args)
         except Exception as exc:  # noqa: BLE001 - recorded as the case's error

@@ -1,10 +1,13 @@
-"""Choosing a conversion's block width by measurement, before it is timed.
+"""Choosing how to convert a pair of states by measurement, before the conversion is timed.
 
 The blocked transpose's best block width depends on the pair of layouts and on the machine: on
 the development VM (4x64x96x96 float64, 1 thread, fraction of a contiguous copy) var.z.y.x to
 var.y.x.z ran 0.74 at width 32 and 0.81 at 64, y.x.z.var to var.z.y.x 0.35 at 32 and 0.44 at 8,
-var.z.y.x to y.x.var.z 0.51 at 32 and 0.60 at 16. So each candidate width is run a few times,
-interleaved, and the fastest median wins. The planning runs are never reported.
+var.z.y.x to y.x.var.z 0.51 at 32 and 0.60 at 16. And on one thread NumPy's strided copy
+(``np.copyto`` between the two logical views) beat every width on a few pairs, e.g.
+var.z.y+1.x to y.x.var.z 0.69 against 0.48 at 4x137x96x96. So each candidate runs a few times,
+interleaved, and the fastest median wins: a conversion is never slower than the best of them
+(up to the planning runs' noise). The planning runs are never reported.
 """
 
 from __future__ import annotations
@@ -16,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from kernels.convert import conversion_args
+from kernels.grid import LOGICAL_AXES
 from kernels.jit import Compiled
 from kernels.state import State
 
@@ -25,29 +29,57 @@ TRANSPOSE_WIDTHS = (8, 16, 32, 64)
 PLAN_REPEATS = 3
 
 
+#: The label of NumPy's strided copy among the candidates.
+NUMPY_COPY = "numpy strided copy"
+
+
+def _copyto(dst: np.ndarray, src: np.ndarray) -> None:
+    np.copyto(dst, src)
+
+
+def _nothing(dst: np.ndarray, src: np.ndarray) -> None:
+    return None
+
+
+#: NumPy's strided copy with the call shape of a compiled conversion (single-threaded in every
+#: build; its empty twin does nothing, for the call overhead).
+STRIDED_COPY = Compiled(NUMPY_COPY, _copyto, _copyto, _copyto, _nothing)
+
+
+def is_compiled(impl: Compiled) -> bool:
+    """False for NumPy's strided copy, which has nothing to compile."""
+    return impl is not STRIDED_COPY
+
+
 @dataclass(frozen=True)
 class ConversionPlan:
     """The conversion chosen for one pair of states and one build."""
 
     impl: Compiled
     args: tuple[Any, ...]
-    width: int | None  # the transpose's block width; None where there is no width to choose
-    medians_ns: dict[int, float] = field(default_factory=dict)  # planning median of each width
+    choice: str  # e.g. "block width 32" or NUMPY_COPY; "" where there was nothing to choose
+    medians_ns: dict[str, float] = field(default_factory=dict)  # planning median of each candidate
 
     def describe(self) -> str:
-        """One line for a report: the chosen width and how the others compared with it."""
-        if self.width is None or len(self.medians_ns) < 2:
+        """One line for a report: the chosen candidate and how the others compared with it."""
+        if len(self.medians_ns) < 2:
             return ""
-        best = self.medians_ns[self.width]
-        others = ", ".join(f"{w} {m / best:.2f}x" for w, m in sorted(self.medians_ns.items()) if w != self.width)
-        return f"block width {self.width} (planning runs, time relative to it: {others})"
+        best = self.medians_ns[self.choice]
+        others = ", ".join(f"{c} {m / best:.2f}x" for c, m in self.medians_ns.items() if c != self.choice)
+        return f"{self.choice} (planning runs, time relative to it: {others})"
 
 
-def candidates(src: State, dst: State) -> list[tuple[int | None, Compiled, tuple[Any, ...]]]:
-    """(width, compiled conversion, arguments) of every candidate for copying ``src`` into ``dst``."""
+def _logical_view(state: State) -> np.ndarray:
+    return state.interior().transpose([state.layout.index_of(a) for a in LOGICAL_AXES])
+
+
+def candidates(src: State, dst: State) -> list[tuple[str, Compiled, tuple[Any, ...]]]:
+    """(label, conversion, arguments) of every candidate for copying ``src`` into ``dst``: the
+    row conversion alone for a tiled pair; else each block width, and NumPy's strided copy."""
     if src.layout.is_tiled or dst.layout.is_tiled:
-        return [(None, *conversion_args(src, dst))]
-    return [(w, *conversion_args(src, dst, w)) for w in TRANSPOSE_WIDTHS]
+        return [("", *conversion_args(src, dst))]
+    found = [(f"block width {w}", *conversion_args(src, dst, w)) for w in TRANSPOSE_WIDTHS]
+    return found + [(NUMPY_COPY, STRIDED_COPY, (_logical_view(dst), _logical_view(src)))]
 
 
 def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: int = PLAN_REPEATS) -> ConversionPlan:
@@ -58,8 +90,7 @@ def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: in
     """
     found = candidates(src, dst)
     if len(found) == 1:
-        width, impl, args = found[0]
-        return ConversionPlan(impl, args, width)
+        return ConversionPlan(found[0][1], found[0][2], found[0][0])
     calls = [getattr(impl, build) for _, impl, args in found]
     for call, (_, _, args) in zip(calls, found):
         call(*args)
@@ -70,7 +101,6 @@ def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: in
             start = time.perf_counter_ns()
             calls[i](*found[i][2])
             times[i].append(time.perf_counter_ns() - start)
-    medians = {w: float(np.median(t)) for (w, _, _), t in zip(found, times)}
-    best = min(range(len(found)), key=lambda i: medians[found[i][0]])
-    width, impl, args = found[best]
-    return ConversionPlan(impl, args, width, medians)
+    medians = {label: float(np.median(t)) for (label, _, _), t in zip(found, times)}
+    label, impl, args = min(found, key=lambda c: medians[c[0]])
+    return ConversionPlan(impl, args, label, medians)

@@ -119,28 +119,41 @@ def test_transpose_with_prefetch_copies_exactly(pair: tuple[str, str], dtype: st
     _check_compiled_copy(np.random.default_rng(2).standard_normal(ext.shape).astype(dtype), pair, TRANSPOSE_AHEAD)
 
 
-def test_planning_keeps_the_fastest_width_and_converts_exactly() -> None:
-    """Every candidate block width is run; the plan keeps the one with the smallest planning
-    median, and its conversion alone fills the destination bit for bit.
+def test_planning_keeps_the_fastest_candidate_and_converts_exactly() -> None:
+    """Every candidate (each block width, NumPy's strided copy) is run; the plan keeps the one
+    with the smallest planning median, and it alone fills the destination bit for bit.
 
     Source: NumPy's reshape and transpose build the expected physical array."""
-    from kernels.conversion_plan import TRANSPOSE_WIDTHS, plan_conversion
+    from kernels.conversion_plan import NUMPY_COPY, TRANSPOSE_WIDTHS, plan_conversion
 
     ext = Extents(var=3, z=9, y=20, x=24)
     values = np.random.default_rng(3).standard_normal(ext.shape)
-    src, dst = State.from_logical(values, "y.x.z.var"), State.zeros("var.z.y.x", ext)
-    plan = plan_conversion(src, dst)
-    assert set(plan.medians_ns) == set(TRANSPOSE_WIDTHS)
-    assert plan.medians_ns[plan.width] == min(plan.medians_ns.values())
-    assert plan.describe().startswith(f"block width {plan.width} (planning runs")
+    src, dst = State.from_logical(values, "y.x.z.var"), State.zeros("var.z.y+1.x", ext)
+    plan = plan_conversion(src, dst, "serial")
+    assert set(plan.medians_ns) == {f"block width {w}" for w in TRANSPOSE_WIDTHS} | {NUMPY_COPY}
+    assert plan.medians_ns[plan.choice] == min(plan.medians_ns.values())
+    assert plan.describe().startswith(f"{plan.choice} (planning runs, time relative to it: ")
     dst.data[...] = 0
-    plan.impl.parallel(*plan.args)
-    assert np.array_equal(dst.data, np.ascontiguousarray(numpy_physical(values, dst.layout)))
+    plan.impl.serial(*plan.args)
+    assert np.array_equal(dst.to_logical(), values)
+    assert not dst.data[:, :, ext.y, :].any()  # the padding row stays untouched
 
 
-def test_tiled_pairs_have_no_width_to_plan() -> None:
+def test_numpy_candidate_copies_between_logical_views() -> None:
+    """The NumPy candidate's arguments are the two logical views, so it copies exactly too."""
+    from kernels.conversion_plan import NUMPY_COPY, candidates
+
+    ext = Extents(var=2, z=5, y=6, x=7)
+    values = np.random.default_rng(4).standard_normal(ext.shape)
+    src, dst = State.from_logical(values, "x.y.z.var"), State.zeros("var.y+1.x.z", ext)
+    (label, impl, args), = [c for c in candidates(src, dst) if c[0] == NUMPY_COPY]
+    impl.parallel(*args)
+    assert np.array_equal(dst.to_logical(), values)
+
+
+def test_tiled_pairs_have_nothing_to_plan() -> None:
     from kernels.conversion_plan import plan_conversion
 
     ext = Extents(var=2, z=3, y=8, x=8)
     plan = plan_conversion(State.zeros("var.z.y.x", ext), State.zeros("y/4.x/4.var.z.y%4.x%4", ext))
-    assert plan.width is None and plan.medians_ns == {} and plan.describe() == ""
+    assert plan.choice == "" and plan.medians_ns == {} and plan.describe() == ""
