@@ -5,7 +5,10 @@ the development VM (4x64x96x96 float64, 1 thread, fraction of a contiguous copy)
 var.y.x.z ran 0.74 at width 32 and 0.81 at 64, y.x.z.var to var.z.y.x 0.35 at 32 and 0.44 at 8,
 var.z.y.x to y.x.var.z 0.51 at 32 and 0.60 at 16. And on one thread NumPy's strided copy
 (``np.copyto`` between the two logical views) beat every width on a few pairs, e.g.
-var.z.y+1.x to y.x.var.z 0.69 against 0.48 at 4x137x96x96. So each candidate runs a few times,
+var.z.y+1.x to y.x.var.z 0.69 against 0.48 at 4x137x96x96. Between a tiled and an untiled
+layout the transpose over split axes won most pairs (y/8.x/16.var.z.y%8.x%16 to y.x.z.var 0.26
+-> 0.38) but the row conversion kept others (the same tiled layout to var.z.y.x 0.90 against
+0.55). So each candidate runs a few times,
 interleaved, and the fastest median wins: a conversion is never slower than the best of them
 (up to the planning runs' noise). The planning runs are never reported.
 """
@@ -18,7 +21,7 @@ from typing import Any
 
 import numpy as np
 
-from kernels.convert import conversion_args
+from kernels.convert import conversion_args, row_conversion_args, split_geometry
 from kernels.grid import LOGICAL_AXES
 from kernels.jit import Compiled
 from kernels.state import State
@@ -29,8 +32,9 @@ TRANSPOSE_WIDTHS = (8, 16, 32, 64)
 PLAN_REPEATS = 3
 
 
-#: The label of NumPy's strided copy among the candidates.
+#: The labels of NumPy's strided copy and of the row conversion among the candidates.
 NUMPY_COPY = "numpy strided copy"
+ROW_COPY = "row copy"
 
 
 def _copyto(dst: np.ndarray, src: np.ndarray) -> None:
@@ -74,11 +78,15 @@ def _logical_view(state: State) -> np.ndarray:
 
 
 def candidates(src: State, dst: State) -> list[tuple[str, Compiled, tuple[Any, ...]]]:
-    """(label, conversion, arguments) of every candidate for copying ``src`` into ``dst``: the
-    row conversion alone for a tiled pair; else each block width, and NumPy's strided copy."""
-    if src.layout.is_tiled or dst.layout.is_tiled:
+    """(label, conversion, arguments) of every candidate for copying ``src`` into ``dst``: each
+    block width of the blocked transpose, then NumPy's strided copy between untiled layouts or
+    the row conversion for a tiled pair; the row conversion alone for a pair the transpose cannot
+    take (``split_geometry``)."""
+    if split_geometry(src, dst) is None:
         return [("", *conversion_args(src, dst))]
     found = [(f"block width {w}", *conversion_args(src, dst, w)) for w in TRANSPOSE_WIDTHS]
+    if src.layout.is_tiled or dst.layout.is_tiled:
+        return found + [(ROW_COPY, *row_conversion_args(src, dst))]
     return found + [(NUMPY_COPY, STRIDED_COPY, (_logical_view(dst), _logical_view(src)))]
 
 

@@ -14,6 +14,7 @@ import numpy as np
 from numba import prange
 
 from kernels.grid import LOGICAL_AXES
+from kernels.layout import TILES, WHOLE, WITHIN
 from kernels.jit import Compiled, build
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.prefetch import prefetch
@@ -114,7 +115,7 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
     contiguous along a1, and b1 is an outer axis: each item copies one whole run. ``_ahead``
     (bound per compiled copy): while reading a block of many rows, prefetch the part of each row
     the next block reads."""
-    a1, a2, b1, b2, c, e = axes[0], axes[1], axes[2], axes[3], axes[4], axes[5]
+    a1, a2, b1, b2, o1, o2, o3, o4 = axes[0], axes[1], axes[2], axes[3], axes[4], axes[5], axes[6], axes[7]
     bs, bsb = buf.shape[1], buf.shape[2]
     # An item whose whole (a, b) square holds at most SMALL_ITEM_BYTES, packed together in the
     # source, is a transposition within L1/L2: one block, copied straight across without the
@@ -135,7 +136,7 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
     mb1, mb2 = (n[b1] + j1 - 1) // j1, (n[b2] + j2 - 1) // j2
     nba = 1 if same else nb1 * nb2
     nbb = n[b1] if same else mb1 * mb2
-    nitems = n[c] * n[e] * nba * nbb
+    nitems = n[o1] * n[o2] * n[o3] * n[o4] * nba * nbb
     u = np.uintp
     for t in prange(nchunks):
         lo, hi = chunk(nitems, nchunks, t)
@@ -144,9 +145,13 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
             r = item // nbb
             blk_a = r % nba
             r = r // nba
-            ie = r % n[e]
-            ic = r // n[e]
-            sbase, dbase = ic * ss[c] + ie * ss[e], ic * ds[c] + ie * ds[e]
+            q4 = r % n[o4]
+            r = r // n[o4]
+            q3 = r % n[o3]
+            r = r // n[o3]
+            q2, q1 = r % n[o2], r // n[o2]
+            sbase = q1 * ss[o1] + q2 * ss[o2] + q3 * ss[o3] + q4 * ss[o4]
+            dbase = q1 * ds[o1] + q2 * ds[o2] + q3 * ds[o3] + q4 * ds[o4]
             if same:
                 s0, d0 = sbase + blk_b * ss[b1], dbase + blk_b * ds[b1]
                 for ia in range(n[a1]):
@@ -233,7 +238,7 @@ def conversion_args(src: State, dst: State, width: int = TRANSPOSE_BLOCK) -> tup
         from kernels.errors import KernelError
 
         raise KernelError(f"cannot convert {src} into {dst}: extents and dtype must match")
-    if not (src.layout.is_tiled or dst.layout.is_tiled):
+    if split_geometry(src, dst) is not None:
         return _transpose_args(src, dst, width)
     if src.layout.flat_block or dst.layout.flat_block:
         return _flat_conversion_args(src, dst)
@@ -302,14 +307,49 @@ def row_conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ..
     return CONVERT, args
 
 
-def _axis_strides(state: State) -> np.ndarray:
-    """Element stride of each logical axis (var, z, y, x) of an untiled state."""
-    elem = [st // state.data.itemsize for st in state.data.strides]
-    return np.array([elem[state.layout.index_of(axis)] for axis in LOGICAL_AXES], dtype=np.int64)
+#: Slots of the blocked transpose's axes: var, z, then y and x each as (tile index, position in
+#: a tile) (an axis no layout of the pair tiles uses its second slot alone), then two of extent 1.
+SLOTS = 8
+_SLOT = {("var", WHOLE): 0, ("z", WHOLE): 1, ("y", TILES): 2, ("y", WITHIN): 3, ("x", TILES): 4, ("x", WITHIN): 5}
+
+
+def split_geometry(src: State, dst: State) -> tuple[list[int], list[int], list[int], list[int], list[int]] | None:
+    """Extents and element strides (src, dst) of the transpose's slots and each layout's slots in
+    memory order, or None when the pair has no such form: a flattened horizontal block, tiles of
+    different sizes along one axis, or a tile that leaves a partial last tile."""
+    tiles: dict[str, int] = {}
+    for state in (src, dst):
+        if state.layout.flat_block:
+            return None
+        for axis, tile in state.layout.tiles.items():
+            if tiles.setdefault(axis, tile) != tile or state.extents[axis] % tile:
+                return None
+    n = [1] * SLOTS
+    n[0], n[1] = src.extents.var, src.extents.z
+    for axis, first in (("y", 2), ("x", 4)):
+        tile = tiles.get(axis)
+        n[first], n[first + 1] = (src.extents[axis] // tile, tile) if tile else (1, src.extents[axis])
+    strides, orders = [], []
+    for state in (src, dst):
+        elem = [st // state.data.itemsize for st in state.data.strides]
+        stride, order = [0] * SLOTS, []
+        for pos, tok in enumerate(state.layout.tokens):
+            if tok.part == WHOLE and tok.axis in tiles:  # untiled here, tiled in the other layout
+                first = _SLOT[(tok.axis, TILES)]
+                stride[first], stride[first + 1] = elem[pos] * tiles[tok.axis], elem[pos]
+                order += [first, first + 1]
+            else:  # an untiled y or x takes the second slot of its pair alone
+                slot = _SLOT[(tok.axis, WITHIN if tok.axis in ("y", "x") and tok.part == WHOLE else tok.part)]
+                stride[slot] = elem[pos]
+                order.append(slot)
+        strides.append(stride)
+        orders.append(order)
+    return n, strides[0], strides[1], orders[0], orders[1]
 
 
 def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple[Any, ...]]:
-    """The blocked transpose between two untiled layouts, outer axes in the destination's order.
+    """The blocked transpose, outer axes in the destination's order. A tiled axis and its
+    counterpart in the other layout are both split into (tile index, position in a tile).
 
     Axes that are adjacent and contiguous in both layouts are first merged into one (``var.z.y.x``
     to ``z.var.y.x`` copies whole y-x planes). A short contiguous axis (shorter than a block, e.g.
@@ -317,10 +357,9 @@ def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple
     block spans the destination's whole contiguous run (up to ``TRANSPOSE_RUN``) when the
     source's run is long, so every write of a block continues the previous one.
     """
-    n = [*src.extents.shape, 1, 1]
-    ss, ds = [*_axis_strides(src), 0, 0], [*_axis_strides(dst), 0, 0]
-    src_order = [LOGICAL_AXES.index(t.axis) for t in src.layout.tokens]
-    dst_order = [LOGICAL_AXES.index(t.axis) for t in dst.layout.tokens]
+    geometry = split_geometry(src, dst)
+    assert geometry is not None, "conversion_args sends only pairs with a split geometry here"
+    n, ss, ds, src_order, dst_order = geometry
     merged = True
     while merged:
         merged = False
@@ -333,7 +372,7 @@ def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple
                 dst_order.remove(q)
                 merged = True
                 break
-    spare = [i for i in range(6) if i not in dst_order]  # axes of extent 1
+    spare = [i for i in range(SLOTS) if i not in dst_order]  # axes of extent 1
     a1, b1 = dst_order[-1], src_order[-1]
     a2 = b2 = -1
     others = [i for i in dst_order[:-1] if i != b1]
@@ -349,7 +388,7 @@ def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple
             others.remove(b2)
     a2 = a2 if a2 >= 0 else spare.pop()
     b2 = b2 if b2 >= 0 else spare.pop()
-    others = spare[: 2 - len(others)] + others
+    others = spare[: 4 - len(others)] + others
     long_source = n[b1] * n[b2] >= width
     run = min(max(n[a1] * n[a2], width), TRANSPOSE_RUN) if long_source else width
     buf = np.zeros((thread_count(), run, width), src.dtype)

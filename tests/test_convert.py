@@ -151,9 +151,31 @@ def test_numpy_candidate_copies_between_logical_views() -> None:
     assert np.array_equal(dst.to_logical(), values)
 
 
-def test_tiled_pairs_have_nothing_to_plan() -> None:
-    from kernels.conversion_plan import plan_conversion
+def test_tiled_pairs_plan_widths_and_awkward_pairs_have_nothing_to_plan() -> None:
+    """Whole tiles plan the blocked transpose's widths against the row conversion (NumPy has no
+    view of a tiled state); a partial last tile, or two tile sizes along one axis, leave the row
+    conversion alone."""
+    from kernels.conversion_plan import ROW_COPY, TRANSPOSE_WIDTHS, plan_conversion
 
     ext = Extents(var=2, z=3, y=8, x=8)
     plan = plan_conversion(State.zeros("var.z.y.x", ext), State.zeros("y/4.x/4.var.z.y%4.x%4", ext))
-    assert plan.choice == "" and plan.medians_ns == {} and plan.describe() == ""
+    assert set(plan.medians_ns) == {f"block width {w}" for w in TRANSPOSE_WIDTHS} | {ROW_COPY}
+    for a, b, e in [("var.z.y.x", "y/3.x/4.var.z.y%3.x%4", ext), ("y/2.x.var.z.y%2", "y/4.x.var.z.y%4", ext)]:
+        plan = plan_conversion(State.zeros(a, e), State.zeros(b, e))
+        assert plan.choice == "" and plan.medians_ns == {} and plan.describe() == ""
+
+
+@pytest.mark.parametrize(
+    "pair",
+    [("var.z.y.x", "y/4.x/8.var.z.y%4.x%8"), ("y/4.x/8.var.z.y%4.x%8", "y.x.z.var"), ("y/4.x/8.z.var.y%4.x%8", "x/8.y.var.x%8.z"),
+     ("var.y+1.x.z", "y/2.x/2.var.y%2.x%2.z+3"), ("y/4.x/8.var.z.y%4.x%8", "y/4.x/8.var.z.y%4.x%8+1")],
+)
+def test_tiled_pairs_take_the_transpose_on_split_axes(pair: tuple[str, str]) -> None:
+    """A tiled axis is split into (tile, position) on both sides and the blocked transpose runs
+    over the split axes, padding included.
+
+    Source: NumPy's reshape and transpose build the expected physical array, bit for bit."""
+    from kernels.convert import TRANSPOSE
+
+    ext = Extents(var=3, z=5, y=12, x=40)
+    _check_compiled_copy(np.random.default_rng(5).standard_normal(ext.shape), pair, TRANSPOSE)
