@@ -8,7 +8,8 @@ var.z.y.x to y.x.var.z 0.51 at 32 and 0.60 at 16. And on one thread NumPy's stri
 var.z.y+1.x to y.x.var.z 0.69 against 0.48 at 4x137x96x96. Between a tiled and an untiled
 layout the transpose over split axes won most pairs (y/8.x/16.var.z.y%8.x%16 to y.x.z.var 0.26
 -> 0.38) but the row conversion kept others (the same tiled layout to var.z.y.x 0.90 against
-0.55). So each candidate runs a few times,
+0.55), and at 2 threads it beat both on some untiled pairs (var.z.y+1.x to y.x.var.z 0.67
+against 0.45 and NumPy's single thread 0.38). So each candidate runs a few times,
 interleaved, and the fastest median wins: a conversion is never slower than the best of them
 (up to the planning runs' noise). The planning runs are never reported.
 """
@@ -79,14 +80,15 @@ def _logical_view(state: State) -> np.ndarray:
 
 def candidates(src: State, dst: State) -> list[tuple[str, Compiled, tuple[Any, ...]]]:
     """(label, conversion, arguments) of every candidate for copying ``src`` into ``dst``: each
-    block width of the blocked transpose, then NumPy's strided copy between untiled layouts or
-    the row conversion for a tiled pair; the row conversion alone for a pair the transpose cannot
-    take (``split_geometry``)."""
+    block width of the blocked transpose, the row conversion, and NumPy's strided copy between
+    untiled layouts; the row conversion alone for a pair the transpose cannot take
+    (``split_geometry``)."""
     if split_geometry(src, dst) is None:
         return [("", *conversion_args(src, dst))]
     found = [(f"block width {w}", *conversion_args(src, dst, w)) for w in TRANSPOSE_WIDTHS]
+    found.append((ROW_COPY, *row_conversion_args(src, dst)))
     if src.layout.is_tiled or dst.layout.is_tiled:
-        return found + [(ROW_COPY, *row_conversion_args(src, dst))]
+        return found
     return found + [(NUMPY_COPY, STRIDED_COPY, (_logical_view(dst), _logical_view(src)))]
 
 

@@ -120,17 +120,18 @@ def test_transpose_with_prefetch_copies_exactly(pair: tuple[str, str], dtype: st
 
 
 def test_planning_keeps_the_fastest_candidate_and_converts_exactly() -> None:
-    """Every candidate (each block width, NumPy's strided copy) is run; the plan keeps the one
-    with the smallest planning median, and it alone fills the destination bit for bit.
+    """Every candidate (each block width, the row conversion, NumPy's strided copy) is run; the
+    plan keeps the one with the smallest planning median, and it alone fills the destination
+    bit for bit.
 
     Source: NumPy's reshape and transpose build the expected physical array."""
-    from kernels.conversion_plan import NUMPY_COPY, TRANSPOSE_WIDTHS, plan_conversion
+    from kernels.conversion_plan import NUMPY_COPY, ROW_COPY, TRANSPOSE_WIDTHS, plan_conversion
 
     ext = Extents(var=3, z=9, y=20, x=24)
     values = np.random.default_rng(3).standard_normal(ext.shape)
     src, dst = State.from_logical(values, "y.x.z.var"), State.zeros("var.z.y+1.x", ext)
     plan = plan_conversion(src, dst, "serial")
-    assert set(plan.medians_ns) == {f"block width {w}" for w in TRANSPOSE_WIDTHS} | {NUMPY_COPY}
+    assert set(plan.medians_ns) == {f"block width {w}" for w in TRANSPOSE_WIDTHS} | {ROW_COPY, NUMPY_COPY}
     assert plan.medians_ns[plan.choice] == min(plan.medians_ns.values())
     assert plan.describe().startswith(f"{plan.choice} (planning runs, time relative to it: ")
     dst.data[...] = 0
@@ -167,8 +168,9 @@ def test_tiled_pairs_plan_widths_and_awkward_pairs_have_nothing_to_plan() -> Non
 
 @pytest.mark.parametrize(
     "pair",
-    [("var.z.y.x", "y/4.x/8.var.z.y%4.x%8"), ("y/4.x/8.var.z.y%4.x%8", "y.x.z.var"), ("y/4.x/8.z.var.y%4.x%8", "x/8.y.var.x%8.z"),
-     ("var.y+1.x.z", "y/2.x/2.var.y%2.x%2.z+3"), ("y/4.x/8.var.z.y%4.x%8", "y/4.x/8.var.z.y%4.x%8+1")],
+    [("var.z.y.x", "y/4.x/8.var.z.y%4.x%8"), ("y/4.x/8.var.z.y%4.x%8", "y.x.z.var"),
+     ("y/4.x/8.z.var.y%4.x%8", "x/8.y.var.x%8.z"), ("var.y+1.x.z", "y/2.x/2.var.y%2.x%2.z+3"),
+     ("y/4.x/8.var.z.y%4.x%8", "y/4.x/8.var.z.y%4.x%8+1")],
 )
 def test_tiled_pairs_take_the_transpose_on_split_axes(pair: tuple[str, str]) -> None:
     """A tiled axis is split into (tile, position) on both sides and the blocked transpose runs
