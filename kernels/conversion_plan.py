@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from kernels.convert import conversion_args, row_conversion_args, split_geometry
+from kernels.convert import conversion_args, row_conversion_args, split_geometry, whole_run_args
 from kernels.grid import LOGICAL_AXES
 from kernels.jit import Compiled
 from kernels.state import State
@@ -33,9 +33,10 @@ TRANSPOSE_WIDTHS = (8, 16, 32, 64)
 PLAN_REPEATS = 3
 
 
-#: The labels of NumPy's strided copy and of the row conversion among the candidates.
+#: The labels of NumPy's strided copy, the row conversion and the whole-run transpose.
 NUMPY_COPY = "numpy strided copy"
 ROW_COPY = "row copy"
+WHOLE_RUN = "whole source run"
 
 
 def _copyto(dst: np.ndarray, src: np.ndarray) -> None:
@@ -80,12 +81,15 @@ def _logical_view(state: State) -> np.ndarray:
 
 def candidates(src: State, dst: State) -> list[tuple[str, Compiled, tuple[Any, ...]]]:
     """(label, conversion, arguments) of every candidate for copying ``src`` into ``dst``: each
-    block width of the blocked transpose, the row conversion, and NumPy's strided copy between
-    untiled layouts; the row conversion alone for a pair the transpose cannot take
-    (``split_geometry``)."""
+    block width of the blocked transpose, its blocks over the source's whole run where that run
+    is long, the row conversion, and NumPy's strided copy between untiled layouts; the row
+    conversion alone for a pair the transpose cannot take (``split_geometry``)."""
     if split_geometry(src, dst) is None:
         return [("", *conversion_args(src, dst))]
     found = [(f"block width {w}", *conversion_args(src, dst, w)) for w in TRANSPOSE_WIDTHS]
+    whole = whole_run_args(src, dst)
+    if whole is not None:
+        found.append((WHOLE_RUN, *whole))
     found.append((ROW_COPY, *row_conversion_args(src, dst)))
     if src.layout.is_tiled or dst.layout.is_tiled:
         return found

@@ -222,6 +222,12 @@ TRANSPOSE_AHEAD = build(_transpose_ahead())
 #: y.x.z.var to y.x.var.z from 0.57-0.64 to 0.98, y.x.var.z to y.x.z.var from 0.62-0.80 to 0.84-1.08.
 TRANSPOSE_BLOCK = 32
 TRANSPOSE_RUN = 640
+#: Longest source run a whole-run block spans, and the scratch it may fill (bytes): blocks of the
+#: whole source run and 64-128 destination positions took var.y.x.z to var.z.y.x from 0.41 to
+#: 0.56-0.57 of a copy and y.x.z.var to var.z.y.x from 0.39 to 0.51-0.52 (4x137x96x96 float64,
+#: 1 thread, development VM).
+WHOLE_RUN_MAX = 1024
+WHOLE_RUN_BUFFER = 256 * 1024
 #: Rows per block from which the transpose prefetches each row's continuation, when the rows lie
 #: a page or more apart: then there are more streams than the hardware prefetcher follows.
 #: Paired on the development VM (4x64x96x96 float64, fraction of a copy, 1 thread): var.z.y.x
@@ -347,7 +353,16 @@ def split_geometry(src: State, dst: State) -> tuple[list[int], list[int], list[i
     return n, strides[0], strides[1], orders[0], orders[1]
 
 
-def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple[Any, ...]]:
+def whole_run_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]] | None:
+    """The blocked transpose with blocks spanning the source's whole contiguous run (after the
+    joins) and a short stretch of the destination's, or None when that run is a block or less,
+    longer than ``WHOLE_RUN_MAX``, or the layouts share their contiguous axis."""
+    if split_geometry(src, dst) is None:
+        return None
+    return _transpose_args(src, dst, 0)
+
+
+def _transpose_args(src: State, dst: State, width: int) -> Any:
     """The blocked transpose, outer axes in the destination's order. A tiled axis and its
     counterpart in the other layout are both split into (tile index, position in a tile).
 
@@ -356,7 +371,9 @@ def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple
     var innermost) is joined with the next axis of its layout into one run, on either side. A
     block spans the destination's whole contiguous run (up to ``TRANSPOSE_RUN``) when the
     source's run is long, so every write of a block continues the previous one.
+    ``width`` 0: blocks span the source's whole run instead (``whole_run_args``), or None.
     """
+    whole, width = width == 0, width or TRANSPOSE_BLOCK
     geometry = split_geometry(src, dst)
     assert geometry is not None, "conversion_args sends only pairs with a split geometry here"
     n, ss, ds, src_order, dst_order = geometry
@@ -391,6 +408,11 @@ def _transpose_args(src: State, dst: State, width: int) -> tuple[Compiled, tuple
     others = spare[: 4 - len(others)] + others
     long_source = n[b1] * n[b2] >= width
     run = min(max(n[a1] * n[a2], width), TRANSPOSE_RUN) if long_source else width
+    if whole:
+        if same or not TRANSPOSE_BLOCK < n[b1] * n[b2] <= WHOLE_RUN_MAX:
+            return None
+        width = n[b1] * n[b2]
+        run = min(n[a1] * n[a2], max(16, min(128, WHOLE_RUN_BUFFER // (width * src.dtype.itemsize))))
     buf = np.zeros((thread_count(), run, width), src.dtype)
     axes = np.array((a1, a2, b1, b2, *others), dtype=np.int64)
     as_i64 = lambda v: np.array(v, dtype=np.int64)  # noqa: E731

@@ -181,3 +181,32 @@ def test_tiled_pairs_take_the_transpose_on_split_axes(pair: tuple[str, str]) -> 
 
     ext = Extents(var=3, z=5, y=12, x=40)
     _check_compiled_copy(np.random.default_rng(5).standard_normal(ext.shape), pair, TRANSPOSE)
+
+
+@pytest.mark.parametrize("pair", [("var.y.x.z", "var.z.y.x"), ("y.x.z.var", "var.z.y+1.x"), ("y.x.var.z", "y/4.x/8.z.var.y%4.x%8")])
+def test_whole_run_blocks_copy_exactly(pair: tuple[str, str]) -> None:
+    """Blocks spanning the source's whole contiguous run (z, or z and var joined) copy exactly.
+
+    Source: NumPy's reshape and transpose build the expected physical array, bit for bit."""
+    from kernels.convert import whole_run_args
+    from kernels.notation import parse_layout
+
+    ext = Extents(var=3, z=41, y=12, x=40)
+    values = np.random.default_rng(6).standard_normal(ext.shape)
+    src = State.from_logical(values, parse_layout(pair[0]))
+    dst = State.zeros(parse_layout(pair[1]), ext)
+    found = whole_run_args(src, dst)
+    assert found is not None
+    impl, args = found
+    assert args[7].shape[2] in (41, 123)  # the scratch spans z, or var.z joined
+    impl.parallel(*args)
+    assert np.array_equal(dst.to_logical(), values)
+
+
+def test_whole_run_blocks_only_where_the_run_is_long_and_not_shared() -> None:
+    from kernels.convert import WHOLE_RUN_MAX, whole_run_args
+
+    short, long_ = Extents(var=2, z=20, y=6, x=6), Extents(var=2, z=WHOLE_RUN_MAX + 1, y=2, x=2)
+    assert whole_run_args(State.zeros("var.y.x.z", short), State.zeros("var.z.y.x", short)) is None
+    assert whole_run_args(State.zeros("var.y.x.z", long_), State.zeros("var.z.y.x", long_)) is None
+    assert whole_run_args(State.zeros("z.var.y.x", short), State.zeros("var.z.y.x", short)) is None  # x innermost in both
