@@ -21,6 +21,10 @@ from kernels.prefetch import prefetch
 from kernels.state import State
 
 NDIM = 6
+#: Values an item of the transpose copies when both layouts share their contiguous axis: short
+#: runs (a 16-wide x tile) are grouped so the item's index arithmetic is not paid per run;
+#: var.z.y.x to y/8.x/16.var.z.y%8.x%16 went from 0.36 to 0.55 of a copy (4x137x96x96, 1 thread).
+SAME_ITEM = 1024
 #: Bytes of an item the transpose copies straight across, without its scratch (see there).
 SMALL_ITEM_BYTES = 32768
 #: Bound per compiled copy of ``transpose_blocks``: whether its read loop asks for each source
@@ -134,8 +138,9 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
     j2 = max(1, bsb // j1)
     nb1, nb2 = (n[a1] + k1 - 1) // k1, (n[a2] + k2 - 1) // k2
     mb1, mb2 = (n[b1] + j1 - 1) // j1, (n[b2] + j2 - 1) // j2
+    runs = max(1, SAME_ITEM // n[a1])  # same: runs along b1 per item, so short runs share an item's set-up
     nba = 1 if same else nb1 * nb2
-    nbb = n[b1] if same else mb1 * mb2
+    nbb = (n[b1] + runs - 1) // runs if same else mb1 * mb2
     nitems = n[o1] * n[o2] * n[o3] * n[o4] * nba * nbb
     u = np.uintp
     for t in prange(nchunks):
@@ -153,9 +158,10 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
             sbase = q1 * ss[o1] + q2 * ss[o2] + q3 * ss[o3] + q4 * ss[o4]
             dbase = q1 * ds[o1] + q2 * ds[o2] + q3 * ds[o3] + q4 * ds[o4]
             if same:
-                s0, d0 = sbase + blk_b * ss[b1], dbase + blk_b * ds[b1]
-                for ia in range(n[a1]):
-                    dst[u(d0 + ia)] = src[u(s0 + ia)]
+                for ib in range(blk_b * runs, min(blk_b * runs + runs, n[b1])):
+                    s0, d0 = sbase + ib * ss[b1], dbase + ib * ds[b1]
+                    for ia in range(n[a1]):
+                        dst[u(d0 + ia)] = src[u(s0 + ia)]
                 continue
             lo1, lo2 = (blk_a % nb1) * k1, (blk_a // nb1) * k2
             hi1, hi2 = min(lo1 + k1, n[a1]), min(lo2 + k2, n[a2])
