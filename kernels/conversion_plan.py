@@ -31,6 +31,10 @@ from kernels.state import State
 TRANSPOSE_WIDTHS = (8, 16, 32, 64)
 #: Interleaved planning runs of each candidate (after one warm-up run each).
 PLAN_REPEATS = 3
+#: States smaller than this (bytes) are not planned: they convert within the caches in
+#: microseconds, where three runs measure mostly noise, and planning would compile every
+#: candidate for nothing. They take the default: block width 32, or the row conversion.
+PLAN_MIN_BYTES = 4 << 20
 
 
 #: The labels of NumPy's strided copy, the row conversion and the whole-run transpose.
@@ -96,12 +100,16 @@ def candidates(src: State, dst: State) -> list[tuple[str, Compiled, tuple[Any, .
     return found + [(NUMPY_COPY, STRIDED_COPY, (_logical_view(dst), _logical_view(src)))]
 
 
-def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: int = PLAN_REPEATS) -> ConversionPlan:
+def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: int = PLAN_REPEATS,
+                    min_bytes: int = PLAN_MIN_BYTES) -> ConversionPlan:
     """Run each candidate once to warm up, then ``repeats`` interleaved times; keep the fastest.
+    States under ``min_bytes`` take the first candidate unplanned.
 
     Every candidate writes the same values into ``dst``, so ``dst`` holds the converted state
     afterwards whichever wins.
     """
+    if src.data.nbytes < min_bytes:
+        return ConversionPlan(*conversion_args(src, dst), "")
     found = candidates(src, dst)
     if len(found) == 1:
         return ConversionPlan(found[0][1], found[0][2], found[0][0])

@@ -130,12 +130,12 @@ def test_planning_keeps_the_fastest_candidate_and_converts_exactly() -> None:
     ext = Extents(var=3, z=9, y=20, x=24)
     values = np.random.default_rng(3).standard_normal(ext.shape)
     src, dst = State.from_logical(values, "y.x.z.var"), State.zeros("var.z.y+1.x", ext)
-    plan = plan_conversion(src, dst, "serial")
+    plan = plan_conversion(src, dst, min_bytes=0)
     assert set(plan.medians_ns) == {f"block width {w}" for w in TRANSPOSE_WIDTHS} | {ROW_COPY, NUMPY_COPY}
     assert plan.medians_ns[plan.choice] == min(plan.medians_ns.values())
     assert plan.describe().startswith(f"{plan.choice} (planning runs, time relative to it: ")
     dst.data[...] = 0
-    plan.impl.serial(*plan.args)
+    plan.impl.parallel(*plan.args)
     assert np.array_equal(dst.to_logical(), values)
     assert not dst.data[:, :, ext.y, :].any()  # the padding row stays untouched
 
@@ -159,10 +159,10 @@ def test_tiled_pairs_plan_widths_and_awkward_pairs_have_nothing_to_plan() -> Non
     from kernels.conversion_plan import ROW_COPY, TRANSPOSE_WIDTHS, plan_conversion
 
     ext = Extents(var=2, z=3, y=8, x=8)
-    plan = plan_conversion(State.zeros("var.z.y.x", ext), State.zeros("y/4.x/4.var.z.y%4.x%4", ext))
+    plan = plan_conversion(State.zeros("var.z.y.x", ext), State.zeros("y/4.x/4.var.z.y%4.x%4", ext), min_bytes=0)
     assert set(plan.medians_ns) == {f"block width {w}" for w in TRANSPOSE_WIDTHS} | {ROW_COPY}
     for a, b, e in [("var.z.y.x", "y/3.x/4.var.z.y%3.x%4", ext), ("y/2.x.var.z.y%2", "y/4.x.var.z.y%4", ext)]:
-        plan = plan_conversion(State.zeros(a, e), State.zeros(b, e))
+        plan = plan_conversion(State.zeros(a, e), State.zeros(b, e), min_bytes=0)
         assert plan.choice == "" and plan.medians_ns == {} and plan.describe() == ""
 
 
@@ -210,3 +210,14 @@ def test_whole_run_blocks_only_where_the_run_is_long_and_not_shared() -> None:
     assert whole_run_args(State.zeros("var.y.x.z", short), State.zeros("var.z.y.x", short)) is None
     assert whole_run_args(State.zeros("var.y.x.z", long_), State.zeros("var.z.y.x", long_)) is None
     assert whole_run_args(State.zeros("z.var.y.x", short), State.zeros("var.z.y.x", short)) is None  # x innermost in both
+
+
+def test_small_states_are_not_planned() -> None:
+    from kernels.conversion_plan import PLAN_MIN_BYTES, plan_conversion
+    from kernels.convert import TRANSPOSE
+
+    ext = Extents(var=2, z=4, y=8, x=8)
+    src, dst = State.zeros("var.z.y.x", ext), State.zeros("var.y.x.z", ext)
+    assert src.data.nbytes < PLAN_MIN_BYTES
+    plan = plan_conversion(src, dst)
+    assert plan.impl is TRANSPOSE and plan.medians_ns == {} and plan.describe() == ""
