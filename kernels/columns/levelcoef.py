@@ -12,7 +12,7 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import (COLUMN, PAIRED, QUADS, STRIP, STRIP_WIDTH, ColumnSolve, column_at, column_offset, column_view,
+from kernels.columns.common import (COLUMN, PAIRED, QUADS, STRIP, STRIP_WIDTH, ColumnSolve, column_offset, column_view,
                                     diffusion_coefficients, interface_diffusivity, right_hand_side)
 from kernels.grid import Extents
 from kernels.jit import Compiled, build, inline
@@ -87,9 +87,7 @@ def solve_pairs(a, b, c, d, x, nz, one, fac, nchunks):  # type: ignore[no-untype
     for t in prange(nchunks):
         lo, hi = chunk(npair, nchunks, t)
         for pair in range(lo, hi):
-            o, i = column_at(2 * pair, inner)
-            p, j = column_at(min(2 * pair + 1, ncol - 1), inner)
-            u, v = np.uintp(o * zext * inner + i), np.uintp(p * zext * inner + j)
+            u, v = column_offset(2 * pair, zext, inner), column_offset(min(2 * pair + 1, ncol - 1), zext, inner)
             x0, x1 = fd[u] * fac[1, 0], fd[v] * fac[1, 0]
             fx[u], fx[v] = x0, x1
             for kk in range(1, nz):

@@ -12,7 +12,7 @@ import numpy as np
 from numba import prange
 
 from kernels.base import Problem, Schedule
-from kernels.columns.common import (COLUMN, PAIRED, QUADS, STRIP, STRIP_WIDTH, ColumnSolve, column_at, column_offset, column_view,
+from kernels.columns.common import (COLUMN, PAIRED, QUADS, STRIP, STRIP_WIDTH, ColumnSolve, column_offset, column_view,
                                     field_coefficient_inputs)
 from kernels.grid import Extents
 from kernels.jit import Compiled, build
@@ -89,9 +89,7 @@ def solve_pairs(a, b, c, d, x, nz, one, cp):  # type: ignore[no-untyped-def]
         lo, hi = chunk(npair, nchunks, t)
         ws = cp[t]
         for pair in range(lo, hi):
-            o, i = column_at(2 * pair, inner)
-            p, j = column_at(min(2 * pair + 1, ncol - 1), inner)
-            u, v = np.uintp(o * zext * inner + i), np.uintp(p * zext * inner + j)
+            u, v = column_offset(2 * pair, zext, inner), column_offset(min(2 * pair + 1, ncol - 1), zext, inner)
             r0, r1 = one / fb[u], one / fb[v]
             c0, c1 = fc[u] * r0, fc[v] * r1
             x0, x1 = fd[u] * r0, fd[v] * r1
