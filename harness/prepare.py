@@ -128,8 +128,7 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
 
     from harness.timing import overhead_ns
     from kernels.base import Bound
-    from kernels.conversion_plan import PLAN_MIN_BYTES, candidates, is_compiled, plan_conversion
-    from kernels.convert import conversion_args
+    from kernels.conversion_plan import choose, is_compiled, planned_candidates
     from kernels.grid import Extents
     from kernels.parallel import first_touch
     from kernels.state import State
@@ -146,11 +145,10 @@ def prepare_conversions(group: Group, ctx: Context, out: Prepared) -> None:
             src.assign_logical(logical)
             dst = State.zeros(dst_spec, extents, group.dtype, toucher)
             rec["footprint_bytes"] = src.data.nbytes + dst.data.nbytes
-            planned = src.data.nbytes >= PLAN_MIN_BYTES
-            found = candidates(src, dst) if planned else [("", *conversion_args(src, dst))]
+            found = planned_candidates(src, dst)
             for impl, args in {id(c[1]): c[1:] for c in found if is_compiled(c[1])}.values():
                 _add_compile(rec, out.compile(getattr(impl, case.build), args))
-            plan = plan_conversion(src, dst, case.build)  # each candidate run untimed; the fastest kept
+            plan = choose(found, case.build)  # each candidate run untimed; the fastest kept
             impl, args, rec["message"] = plan.impl, plan.args, plan.describe()
             dispatcher = getattr(impl, case.build)
             dst.data[...] = 0  # the chosen conversion alone must fill it

@@ -42,6 +42,9 @@ NUMPY_COPY = "numpy strided copy"
 ROW_COPY = "row copy"
 WHOLE_RUN = "whole source run"
 
+#: A candidate conversion: its label, the compiled conversion (or NumPy's copy), its arguments.
+Candidate = tuple[str, Compiled, tuple[Any, ...]]
+
 
 def _copyto(dst: np.ndarray, src: np.ndarray) -> None:
     np.copyto(dst, src)
@@ -83,7 +86,7 @@ def _logical_view(state: State) -> np.ndarray:
     return state.interior().transpose([state.layout.index_of(a) for a in LOGICAL_AXES])
 
 
-def candidates(src: State, dst: State) -> list[tuple[str, Compiled, tuple[Any, ...]]]:
+def candidates(src: State, dst: State) -> list[Candidate]:
     """(label, conversion, arguments) of every candidate for copying ``src`` into ``dst``: each
     block width of the blocked transpose, its blocks over the source's whole run where that run
     is long, the row conversion, and NumPy's strided copy between untiled layouts; the row
@@ -100,20 +103,25 @@ def candidates(src: State, dst: State) -> list[tuple[str, Compiled, tuple[Any, .
     return found + [(NUMPY_COPY, STRIDED_COPY, (_logical_view(dst), _logical_view(src)))]
 
 
-def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: int = PLAN_REPEATS,
-                    min_bytes: int = PLAN_MIN_BYTES) -> ConversionPlan:
-    """Run each candidate once to warm up, then ``repeats`` interleaved times; keep the fastest.
-    States under ``min_bytes`` take the first candidate unplanned.
-
-    Every candidate writes the same values into ``dst``, so ``dst`` holds the converted state
-    afterwards whichever wins.
-    """
+def planned_candidates(src: State, dst: State, min_bytes: int = PLAN_MIN_BYTES) -> list[Candidate]:
+    """The candidates ``plan_conversion`` runs: the default conversion alone for a state under
+    ``min_bytes``, else ``candidates``."""
     if src.data.nbytes < min_bytes:
-        return ConversionPlan(*conversion_args(src, dst), "")
-    found = candidates(src, dst)
+        return [("", *conversion_args(src, dst))]
+    return candidates(src, dst)
+
+
+def choose(found: list[Candidate], build: str = "parallel",
+           repeats: int = PLAN_REPEATS) -> ConversionPlan:
+    """Run each candidate once to warm up, then ``repeats`` interleaved times; keep the fastest.
+    A lone candidate is kept unrun.
+
+    Every candidate writes the same values into its destination, so the destination holds the
+    converted state afterwards whichever wins.
+    """
     if len(found) == 1:
         return ConversionPlan(found[0][1], found[0][2], found[0][0])
-    calls = [getattr(impl, build) for _, impl, args in found]
+    calls = [getattr(impl, build) for _, impl, _ in found]
     for call, (_, _, args) in zip(calls, found):
         call(*args)
     times: list[list[int]] = [[] for _ in found]
@@ -126,3 +134,9 @@ def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: in
     medians = {label: float(np.median(t)) for (label, _, _), t in zip(found, times)}
     label, impl, args = min(found, key=lambda c: medians[c[0]])
     return ConversionPlan(impl, args, label, medians)
+
+
+def plan_conversion(src: State, dst: State, build: str = "parallel", repeats: int = PLAN_REPEATS,
+                    min_bytes: int = PLAN_MIN_BYTES) -> ConversionPlan:
+    """``choose`` among the ``planned_candidates`` of copying ``src`` into ``dst``."""
+    return choose(planned_candidates(src, dst, min_bytes), build, repeats)

@@ -250,8 +250,9 @@ def conversion_args(src: State, dst: State, width: int = TRANSPOSE_BLOCK) -> tup
         from kernels.errors import KernelError
 
         raise KernelError(f"cannot convert {src} into {dst}: extents and dtype must match")
-    if split_geometry(src, dst) is not None:
-        return _transpose_args(src, dst, width)
+    geometry = split_geometry(src, dst)
+    if geometry is not None:
+        return _transpose_args(src, dst, width, geometry)
     if src.layout.flat_block or dst.layout.flat_block:
         return _flat_conversion_args(src, dst)
     return row_conversion_args(src, dst)
@@ -322,10 +323,15 @@ def row_conversion_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ..
 #: Slots of the blocked transpose's axes: var, z, then y and x each as (tile index, position in
 #: a tile) (an axis no layout of the pair tiles uses its second slot alone), then two of extent 1.
 SLOTS = 8
-_SLOT = {("var", WHOLE): 0, ("z", WHOLE): 1, ("y", TILES): 2, ("y", WITHIN): 3, ("x", TILES): 4, ("x", WITHIN): 5}
+_SLOT = {("var", WHOLE): 0, ("z", WHOLE): 1, ("y", TILES): 2, ("y", WITHIN): 3, ("y", WHOLE): 3, ("x", TILES): 4,
+         ("x", WITHIN): 5, ("x", WHOLE): 5}
 
 
-def split_geometry(src: State, dst: State) -> tuple[list[int], list[int], list[int], list[int], list[int]] | None:
+#: Extents, source strides, destination strides, source order, destination order (``split_geometry``).
+Geometry = tuple[list[int], list[int], list[int], list[int], list[int]]
+
+
+def split_geometry(src: State, dst: State) -> Geometry | None:
     """Extents and element strides (src, dst) of the transpose's slots and each layout's slots in
     memory order, or None when the pair has no such form: a flattened horizontal block, tiles of
     different sizes along one axis, or a tile that leaves a partial last tile."""
@@ -351,7 +357,7 @@ def split_geometry(src: State, dst: State) -> tuple[list[int], list[int], list[i
                 stride[first], stride[first + 1] = elem[pos] * tiles[tok.axis], elem[pos]
                 order += [first, first + 1]
             else:  # an untiled y or x takes the second slot of its pair alone
-                slot = _SLOT[(tok.axis, WITHIN if tok.axis in ("y", "x") and tok.part == WHOLE else tok.part)]
+                slot = _SLOT[(tok.axis, tok.part)]
                 stride[slot] = elem[pos]
                 order.append(slot)
         strides.append(stride)
@@ -363,12 +369,11 @@ def whole_run_args(src: State, dst: State) -> tuple[Compiled, tuple[Any, ...]] |
     """The blocked transpose with blocks spanning the source's whole contiguous run (after the
     joins) and a short stretch of the destination's, or None when that run is a block or less,
     longer than ``WHOLE_RUN_MAX``, or the layouts share their contiguous axis."""
-    if split_geometry(src, dst) is None:
-        return None
-    return _transpose_args(src, dst, 0)
+    geometry = split_geometry(src, dst)
+    return None if geometry is None else _transpose_args(src, dst, 0, geometry)
 
 
-def _transpose_args(src: State, dst: State, width: int) -> Any:
+def _transpose_args(src: State, dst: State, width: int, geometry: Geometry) -> Any:
     """The blocked transpose, outer axes in the destination's order. A tiled axis and its
     counterpart in the other layout are both split into (tile index, position in a tile).
 
@@ -377,11 +382,10 @@ def _transpose_args(src: State, dst: State, width: int) -> Any:
     var innermost) is joined with the next axis of its layout into one run, on either side. A
     block spans the destination's whole contiguous run (up to ``TRANSPOSE_RUN``) when the
     source's run is long, so every write of a block continues the previous one.
-    ``width`` 0: blocks span the source's whole run instead (``whole_run_args``), or None.
+    ``geometry``: the pair's ``split_geometry``. ``width`` 0: blocks span the source's whole run
+    instead (``whole_run_args``), or None.
     """
     whole, width = width == 0, width or TRANSPOSE_BLOCK
-    geometry = split_geometry(src, dst)
-    assert geometry is not None, "conversion_args sends only pairs with a split geometry here"
     n, ss, ds, src_order, dst_order = geometry
     merged = True
     while merged:
