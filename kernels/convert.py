@@ -7,7 +7,6 @@ pair of layouts, tiled or padded.
 
 from __future__ import annotations
 
-import types
 from typing import Any
 
 import numpy as np
@@ -15,7 +14,7 @@ from numba import prange
 
 from kernels.grid import LOGICAL_AXES
 from kernels.layout import TILES, WHOLE, WITHIN
-from kernels.jit import Compiled, build
+from kernels.jit import Compiled, bound_copy, build
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.prefetch import prefetch
 from kernels.state import State
@@ -207,16 +206,7 @@ def transpose_blocks(src, dst, n, ss, ds, axes, same, buf, nchunks):  # type: ig
 CONVERT = build(convert_rows)
 CONVERT_FLAT = build(convert_flat_rows)
 TRANSPOSE = build(transpose_blocks)
-
-
-def _transpose_ahead():  # type: ignore[no-untyped-def]
-    namespace = dict(transpose_blocks.__globals__, _ahead=True)
-    fn = types.FunctionType(transpose_blocks.__code__, namespace, "transpose_blocks_ahead")
-    fn.__qualname__, fn.__module__, fn.__doc__ = fn.__name__, transpose_blocks.__module__, transpose_blocks.__doc__
-    return fn
-
-
-TRANSPOSE_AHEAD = build(_transpose_ahead())
+TRANSPOSE_AHEAD = build(bound_copy(transpose_blocks, "transpose_blocks_ahead", _ahead=True))
 
 #: Positions of the source's contiguous run per block of the blocked transpose, and the longest
 #: destination run a block spans (elements). Measured on the development VM at 4x137x96x96

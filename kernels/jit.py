@@ -52,6 +52,16 @@ def cache_dir() -> str:
 numba_config.CACHE_DIR = cache_dir()
 
 
+def bound_copy(template: Callable[..., Any], name: str, **pieces: Any) -> Callable[..., Any]:
+    """A copy of ``template`` named ``name`` whose globals also hold ``pieces``: how a compiled
+    template gets its inlined parts. Its own name means its own cache files and compile records."""
+    fn = types.FunctionType(template.__code__, dict(template.__globals__, **pieces), name)
+    fn.__qualname__ = name
+    fn.__module__ = template.__module__
+    fn.__doc__ = template.__doc__
+    return fn
+
+
 def _twin(fn: Callable[..., Any], suffix: str) -> Callable[..., Any]:
     """A copy of ``fn`` under another name, so its cache entries never collide with the original's."""
     twin = types.FunctionType(fn.__code__, fn.__globals__, fn.__name__ + suffix, fn.__defaults__, fn.__closure__)

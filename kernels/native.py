@@ -66,7 +66,6 @@ import hashlib
 import os
 import shutil
 import subprocess
-import types
 from pathlib import Path
 from typing import Any
 
@@ -74,7 +73,7 @@ from numba import prange
 
 from kernels.base import Schedule
 from kernels.errors import KernelError
-from kernels.jit import Compiled, build, inline
+from kernels.jit import Compiled, bound_copy, build, inline
 from kernels.parallel import chunk
 
 #: Schedules of a native column solve: how the columns are dealt to threads (the library decides the rest).
@@ -160,10 +159,7 @@ def _bind(template: Any, library: str | Path, symbol: str, argtypes: list[Any], 
             raise KernelError(f"native library '{library}' has no function '{symbol}_{dtype}'; it must export {symbol}_f64 and {symbol}_f32") from None
         fn.argtypes, fn.restype = argtypes, None
         functions[f"_c{dtype[1:]}"] = fn
-    namespace = dict(template.__globals__, **functions)
-    walk = types.FunctionType(template.__code__, namespace, f"{symbol}_{suffix}")
-    walk.__qualname__ = walk.__name__
-    walk.__module__ = template.__module__
+    walk = bound_copy(template, f"{symbol}_{suffix}", **functions)
     return build(walk, cache=False, native=(str(library), symbol))
 
 

@@ -10,14 +10,13 @@ result goes back in B-element runs. Reads grow by ``(A + 2h) / A``, all from cac
 
 from __future__ import annotations
 
-import types
 from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
 from numba import prange
 
-from kernels.jit import Compiled, build, inline
+from kernels.jit import Compiled, bound_copy, build, inline
 from kernels.layout import TILES, WITHIN
 from kernels.parallel import chunk, dot4, unflatten4
 from kernels.state import State
@@ -128,11 +127,7 @@ def _band_walk(q, out, extra, counts, strides, jmul, yoff, runs, nx, tile_y, til
 
 def band_walk(name: str, offsets: Callable[..., Any], point: Callable[..., Any]) -> Compiled:
     """The compiled band walk of one stencil (pieces as in ``row_walk``, bound as globals)."""
-    namespace = dict(_band_walk.__globals__, _offsets=offsets, _point=point)
-    walk = types.FunctionType(_band_walk.__code__, namespace, f"{name}_bands")
-    walk.__qualname__ = walk.__name__
-    walk.__module__ = _band_walk.__module__
-    return build(walk)
+    return build(bound_copy(_band_walk, f"{name}_bands", _offsets=offsets, _point=point))
 
 
 def scratch_offsets(halo: int, frame: int) -> tuple[np.ndarray, np.ndarray]:

@@ -11,7 +11,6 @@ only the ends use per-element table lookups. No modulo and no negative-index wra
 
 from __future__ import annotations
 
-import types
 from dataclasses import dataclass
 from typing import Any, Callable
 
@@ -20,7 +19,7 @@ from numba import prange
 
 from kernels.base import Kernel, Problem, Schedule
 from kernels.grid import Extents
-from kernels.jit import Compiled, build, inline
+from kernels.jit import Compiled, bound_copy, build, inline
 from kernels.layout import TILES, Layout
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.state import State
@@ -198,10 +197,7 @@ def row_walk(name: str, offsets: Callable[..., Any], point: Callable[..., Any], 
     function, so a closure would recompile in every worker. ``out`` is a parameter of its own
     because numba's parallel loops drop stores into an array taken from a tuple.
     """
-    namespace = dict(_walk.__globals__, _offsets=offsets, _point=point, _companion_may_stand=companion)
-    walk = types.FunctionType(_walk.__code__, namespace, f"{name}_rows")
-    walk.__qualname__ = walk.__name__  # its own cache files and compile records
-    walk.__module__ = _walk.__module__
+    walk = bound_copy(_walk, f"{name}_rows", _offsets=offsets, _point=point, _companion_may_stand=companion)
     compiled = build(walk)
     _PIECES[compiled.name] = (name, offsets, point)
     return compiled

@@ -10,7 +10,6 @@ neighbours and the wrapped values are never read.
 from __future__ import annotations
 
 import copy
-import types
 from typing import Any, Callable
 
 import numpy as np
@@ -19,7 +18,7 @@ from numba import prange
 from kernels.base import Problem, Schedule
 from kernels.errors import KernelError
 from kernels.grid import Extents
-from kernels.jit import Compiled, build
+from kernels.jit import Compiled, bound_copy, build
 from kernels.parallel import chunk, dot4, thread_count, unflatten4
 from kernels.stencils.bands import band_geometry, copy_band_rows, scratch_offsets
 from kernels.stencils.common import _PIECES, CYCLIC, Stencil, row_geometry, row_length
@@ -106,15 +105,8 @@ def _limited_bands(q, out, extra, counts, strides, jmul, yoff, runs, nx, tile_y,
 
 def limited_walk(name: str, offsets: Callable[..., Any], point: Callable[..., Any]) -> Compiled:
     """The compiled limited-area walk of one stencil, from the same two pieces as ``row_walk``."""
-    namespace = dict(_limited.__globals__, _offsets=offsets, _point=point)
-    walk = types.FunctionType(_limited.__code__, namespace, f"{name}_interior_rows")
-    walk.__qualname__ = walk.__name__
-    walk.__module__ = _limited.__module__
-    compiled = build(walk)
-    bands = types.FunctionType(_limited_bands.__code__, namespace, f"{name}_interior_bands")
-    bands.__qualname__ = bands.__name__
-    bands.__module__ = _limited_bands.__module__
-    _BANDS[compiled.name] = build(bands)
+    compiled = build(bound_copy(_limited, f"{name}_interior_rows", _offsets=offsets, _point=point))
+    _BANDS[compiled.name] = build(bound_copy(_limited_bands, f"{name}_interior_bands", _offsets=offsets, _point=point))
     _PIECES[compiled.name] = (f"{name}_interior", offsets, point)
     return compiled
 
